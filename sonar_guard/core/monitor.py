@@ -1,0 +1,521 @@
+"""The engine: readings, odometry and clock ticks in; verdicts, a speed limit and events out.
+
+Time is always an argument. The live node passes ROS time (receive time of each message and
+timer ticks); the offline checker passes bag times. For the same input stream both get the
+same verdicts, limits and events.
+
+How the limit is found, for the current direction of travel:
+
+* the sensors whose beam cone meets the corridor the footprint sweeps in that direction cover
+  it (geometry); no covering sensor, a silent or untrusted one, or stale odometry means
+  ``fallback_speed``;
+* each covering sensor bounds the speed by
+  ``max_safe_speed(free distance, detection latency + reaction time + reading age, decel,
+  margin)``, where free distance is the range minus the mount's distance to the footprint edge
+  along the beam, 0 for a blind reading, and max range for no echo;
+* an obstacle that was closing in and then vanished into no echo (a lost echo, or an object
+  inside the ring-down range) is remembered and dead-reckoned with odometry until a trusted
+  reading clears it;
+* the limit is the smallest bound, capped by ``max_speed``; it drops at once and rises at most
+  at ``rise_rate``.
+
+Units: seconds, metres, m/s, m/s^2, radians.
+"""
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+import math
+
+import numpy as np
+
+from sonar_guard.core.acoustics import echo_timeout
+from sonar_guard.core.braking import max_safe_speed
+from sonar_guard.core.config import Config, SensorConfig
+from sonar_guard.core.geometry import (
+    Footprint,
+    Mount,
+    beam_axis,
+    coverage,
+    edge_offset_m,
+    heading_index,
+    uniform_headings,
+)
+from sonar_guard.core.readings import Motion, RangeReading, ReadingCheck, ReadingValidator, Verdict
+from sonar_guard.core.schedule import ClashDetector, PeriodTracker, Schedule
+
+__all__ = [
+    'Decision',
+    'EVENT_KINDS',
+    'Event',
+    'Monitor',
+    'OdometrySample',
+    'SensorStatus',
+    'mount_of',
+]
+
+EVENT_KINDS: tuple[str, ...] = (
+    'blind', 'no_echo', 'invalid', 'stale', 'stuck', 'jump', 'late', 'slot_clash', 'overspeed')
+
+STILL_SPEED_MPS = 0.02  # below this the direction of travel is kept, not re-read
+CLOCK_JUMP_S = 0.5  # time going back more than this resets every history
+HOLONOMIC_HEADINGS = 72  # 5 degree steps
+_STRETCH_KINDS = {Verdict.BLIND: 'blind', Verdict.INVALID: 'invalid', Verdict.STALE: 'stale',
+                  Verdict.LATE: 'late', Verdict.STUCK: 'stuck'}
+
+
+@dataclass(frozen=True, slots=True)
+class OdometrySample:
+    """Body velocity from nav_msgs/Odometry twist (m/s, rad/s) and its times (s)."""
+
+    stamp_s: float
+    vx_mps: float
+    vy_mps: float
+    wz_radps: float
+    arrival_s: float
+
+
+@dataclass(frozen=True, slots=True)
+class Event:
+    """A finding: what kind, which sensor (None: the robot), when (s) and the numbers."""
+
+    kind: str
+    sensor: str | None
+    t_start: float
+    t_end: float
+    detail: str
+
+    def to_dict(self) -> dict:
+        """Return the JSON form of the contract (kind, sensor, t_start, t_end, detail)."""
+        return {'kind': self.kind, 'sensor': self.sensor, 't_start': self.t_start,
+                't_end': self.t_end, 'detail': self.detail}
+
+
+@dataclass(frozen=True, slots=True)
+class Decision:
+    """The speed limit at one instant and why."""
+
+    time_s: float
+    limit_mps: float
+    target_mps: float
+    heading_rad: float
+    reason: str
+    limiting_sensor: str | None
+    covering: tuple[str, ...]
+    speed_mps: float
+    odometry_fresh: bool
+
+
+@dataclass(frozen=True, slots=True)
+class SensorStatus:
+    """What the engine knows of one sensor now, for diagnostics and reports."""
+
+    name: str
+    verdict: Verdict | None
+    reason: str
+    last_range_m: float
+    silent_for_s: float
+    silent: bool
+    free_distance_m: float
+    memory_m: float | None
+    latency_s: float
+    period_median_s: float
+    period_worst_s: float
+    counts: dict[str, int] = field(default_factory=dict)
+
+
+def mount_of(sensor: SensorConfig) -> Mount:
+    """Return the geometry mount of a configured sensor."""
+    return Mount(sensor.x_m, sensor.y_m, sensor.z_m, sensor.yaw_rad, sensor.field_of_view_rad,
+                 sensor.max_range_m)
+
+
+class _OpenEvent:
+    __slots__ = ('detail', 'kind', 'sensor', 't_last', 't_start')
+
+    def __init__(self, kind: str, sensor: str | None, t: float, detail: str) -> None:
+        self.kind, self.sensor, self.t_start, self.t_last, self.detail = kind, sensor, t, t, detail
+
+
+class _SensorState:
+    """Everything the engine remembers about one sensor."""
+
+    __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'edge_m', 'free_m',
+                 'free_stamp', 'last_ok_range', 'memory_m', 'memory_stamp', 'periods', 'timeout_s',
+                 'heard_stamp', 'validator')
+
+    def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
+        self.config = config
+        mount = mount_of(config)
+        self.axis = beam_axis(mount)
+        self.edge_m = edge_offset_m(mount, footprint)
+        self.timeout_s = echo_timeout(config.max_range_m, config.air_temperature_c)
+        self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
+        self.periods = PeriodTracker()
+        self.counts = {v.value: 0 for v in Verdict}
+        self.reset()
+
+    def reset(self) -> None:
+        self.validator.reset()
+        self.periods.reset()
+        self.check: ReadingCheck | None = None
+        self.heard_stamp: float | None = None
+        self.free_m = math.nan
+        self.free_stamp = math.nan
+        self.last_ok_range: float | None = None
+        self.closing = False
+        self.memory_m: float | None = None
+        self.memory_stamp = math.nan
+
+    def free_of(self, range_m: float) -> float:
+        return max(0.0, range_m - self.edge_m)
+
+
+class Monitor:
+    """Keep per-sensor state and decide the speed limit; see the module docstring.
+
+    Feed it with :meth:`on_range`, :meth:`on_odometry` and :meth:`tick`, each with times in
+    seconds; collect findings with :meth:`pop_events` and :meth:`finish`.
+    """
+
+    def __init__(self, config: Config) -> None:
+        self.config = config
+        self.schedule = Schedule.from_config(config)
+        lim = config.limits
+        self._states = {s.name: _SensorState(s, config.robot.footprint, lim.stale_after_s)
+                        for s in config.sensors}
+        self._clash = ClashDetector(config.sensors)
+        count = HOLONOMIC_HEADINGS if config.robot.holonomic else 2
+        self._headings = uniform_headings(count)
+        table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint,
+                         self._headings)
+        names = config.sensor_names
+        self._covering: tuple[tuple[str, ...], ...] = tuple(
+            tuple(n for n, c in zip(names, row) if c) for row in np.asarray(table, dtype=bool))
+        self.clock_resets = 0
+        self._closed: list[Event] = []
+        self._open: dict[tuple[str, str | None], _OpenEvent] = {}
+        self._start = math.nan
+        self._reset_motion()
+
+    # ------------------------------------------------------------------ inputs
+
+    def _reset_motion(self) -> None:
+        self._now = -math.inf
+        self._odom: OdometrySample | None = None
+        self._pose = Motion()
+        self._heading = 0.0
+        self._limit = math.nan
+        self._limit_time = math.nan
+        self._excess_since: float | None = None
+        self._excess_allow = 0.0
+        self._excess_peak = 0.0
+
+    def _advance(self, now_s: float) -> None:
+        if not math.isfinite(now_s):
+            return
+        if now_s < self._now - CLOCK_JUMP_S:
+            self._close_all(self._now)
+            for st in self._states.values():
+                st.reset()
+            self._clash.reset()
+            self._reset_motion()
+            self._start = now_s
+            self.clock_resets += 1
+        if math.isnan(self._start):
+            self._start = now_s
+        self._now = max(self._now, now_s)
+
+    def on_range(self, reading: RangeReading) -> ReadingCheck:
+        """Judge one reading and update the sensor's state; return the verdict."""
+        st = self._states.get(reading.sensor)
+        if st is None:
+            raise KeyError(f'unknown sensor {reading.sensor!r}; configured: '
+                           f'{", ".join(self._states)}')
+        self._advance(reading.arrival_s)
+        check = st.validator.check(reading, self._pose)
+        st.check = check
+        st.counts[check.verdict.value] += 1
+        v = check.verdict
+        name = reading.sensor
+        t = reading.stamp_s
+        if v in (Verdict.INVALID, Verdict.STALE):
+            # discarded: neither the free distance nor the period and clash estimates move
+            self._stretch(name, _STRETCH_KINDS[v], t, check.reason)
+            self._close_other_stretches(name, keep=(_STRETCH_KINDS[v], 'stale', 'no_echo'))
+            return check
+        st.periods.add(t)
+        clash = self._clash.check(name, t, reading.range_m)
+        if clash is not None:
+            other, gap = clash
+            self._stretch(name, 'slot_clash', t,
+                          f'fired {abs(gap) * 1e3:.1f} ms {"after" if gap >= 0 else "before"} '
+                          f'{other} (echo timeout {st.timeout_s * 1e3:.1f} ms)')
+        else:
+            self._close(name, 'slot_clash')
+        self._apply(st, check)
+        keep = set()
+        if v is Verdict.NO_ECHO and st.memory_m is not None and ('no_echo', name) in self._open:
+            self._open[('no_echo', name)].t_last = t
+            keep.add('no_echo')
+        kind = _STRETCH_KINDS.get(v)
+        if kind is not None:
+            self._stretch(name, kind, t, check.reason)
+            keep.add(kind)
+        if v is Verdict.JUMP:
+            self._closed.append(Event('jump', name, t, t, check.reason))
+        self._close_other_stretches(name, keep=tuple(keep))
+        return check
+
+    def _apply(self, st: _SensorState, check: ReadingCheck) -> None:
+        """Update the free distance and the lost-obstacle memory from a usable reading."""
+        v, r, t = check.verdict, check.range_m, check.stamp_s
+        cfg = st.config
+        st.heard_stamp = t  # the sensor is talking, even when what it says is stuck
+        if v is Verdict.STUCK:
+            return  # stuck readings say nothing; the sensor is untrusted until they change
+        if v in (Verdict.OK, Verdict.LATE):
+            previous = st.last_ok_range
+            along = self._speed_along(st)
+            st.closing = ((previous is not None and previous - r > cfg.resolution_m)
+                          or along > STILL_SPEED_MPS)
+            st.last_ok_range = r
+            st.free_m, st.free_stamp = st.free_of(r), t
+            st.memory_m = None
+        elif v is Verdict.JUMP:
+            new_free = st.free_of(r)
+            if not math.isfinite(st.free_m) or new_free < st.free_m:
+                st.free_m, st.free_stamp = new_free, t
+            # else: keep the nearer, older range with its own (older) stamp
+            st.last_ok_range = r
+            st.closing = False
+        elif v is Verdict.BLIND:
+            st.free_m, st.free_stamp = 0.0, t
+            st.memory_m, st.memory_stamp = 0.0, t
+            st.closing = True
+        elif v is Verdict.NO_ECHO:
+            previous_verdict_closing = st.closing and st.last_ok_range is not None
+            if st.memory_m is None and previous_verdict_closing:
+                # carry the last free distance forward to now if the robot kept closing in
+                closing_mps = max(0.0, self._speed_along(st))
+                st.memory_m = max(0.0, st.free_m - closing_mps * max(0.0, t - st.free_stamp))
+                st.memory_stamp = t
+                self._stretch(cfg.name, 'no_echo', t,
+                              f'echo lost at {st.last_ok_range:.3f} m while closing in; '
+                              f'kept at {st.free_m:.2f} m free until a trusted echo')
+            st.closing = False
+            st.last_ok_range = None
+            st.free_m, st.free_stamp = st.free_of(cfg.max_range_m), t
+
+    def _speed_along(self, st: _SensorState) -> float:
+        if self._odom is None:
+            return 0.0
+        return self._odom.vx_mps * float(st.axis[0]) + self._odom.vy_mps * float(st.axis[1])
+
+    def on_odometry(self, sample: OdometrySample) -> None:
+        """Take body velocity from odometry; dead-reckon pose and remembered obstacles."""
+        self._advance(sample.arrival_s)
+        values = (sample.stamp_s, sample.vx_mps, sample.vy_mps, sample.wz_radps)
+        if not all(math.isfinite(v) for v in values):
+            self._stretch(None, 'invalid', sample.arrival_s,
+                          f'odometry not finite: vx={sample.vx_mps!r} vy={sample.vy_mps!r} '
+                          f'wz={sample.wz_radps!r}')
+            return
+        self._close(None, 'invalid')
+        previous = self._odom
+        self._odom = sample
+        self._close(None, 'stale')
+        if previous is None:
+            return
+        dt = sample.stamp_s - previous.stamp_s
+        if not 0 < dt <= self.config.limits.odom_stale_after_s:
+            return
+        vx, vy, wz = previous.vx_mps, previous.vy_mps, previous.wz_radps
+        th = self._pose.theta_rad
+        c, s = math.cos(th), math.sin(th)
+        self._pose = Motion(self._pose.x_m + (c * vx - s * vy) * dt,
+                            self._pose.y_m + (s * vx + c * vy) * dt, th + wz * dt)
+        for st in self._states.values():
+            if st.memory_m is None:
+                continue
+            along = vx * float(st.axis[0]) + vy * float(st.axis[1])
+            moved = along * max(0.0, sample.stamp_s - max(previous.stamp_s, st.memory_stamp))
+            st.memory_m = max(0.0, st.memory_m - moved)
+            st.memory_stamp = max(st.memory_stamp, sample.stamp_s)
+            if st.memory_m > st.free_of(st.config.max_range_m):
+                st.memory_m = None  # receded out of the sensor's reach
+
+    # ------------------------------------------------------------------ decisions
+
+    def tick(self, now_s: float) -> Decision:
+        """Advance the clock to ``now_s``, update silence and overspeed, and decide the limit."""
+        self._advance(now_s)
+        now = self._now
+        lim = self.config.limits
+        for name, st in self._states.items():
+            since = st.heard_stamp if st.heard_stamp is not None else self._start
+            if now - since > lim.stale_after_s:
+                if ('stale', name) not in self._open:
+                    self._stretch(name, 'stale', since,
+                                  f'no usable reading for more than {lim.stale_after_s:g} s')
+                self._open[('stale', name)].t_last = now
+        odom_fresh = self._odometry_fresh(now)
+        if not odom_fresh:
+            since = self._odom.arrival_s if self._odom is not None else self._start
+            if now - since > lim.odom_stale_after_s:
+                if ('stale', None) not in self._open:
+                    self._stretch(None, 'stale', since,
+                                  f'no odometry for more than {lim.odom_stale_after_s:g} s')
+                self._open[('stale', None)].t_last = now
+        speed = 0.0
+        if self._odom is not None:
+            vx, vy = self._odom.vx_mps, self._odom.vy_mps
+            speed = math.hypot(vx, vy)
+            if speed > STILL_SPEED_MPS:
+                if self.config.robot.holonomic:
+                    self._heading = math.atan2(vy, vx) % (2 * math.pi)
+                else:
+                    self._heading = 0.0 if vx >= 0 else math.pi
+        target, reason, limiting, covering = self._bound(self._heading, now, odom_fresh)
+        self._limit = self._rise_limited(target, now)
+        if odom_fresh:
+            self._check_overspeed(speed, now)
+        return Decision(time_s=now, limit_mps=self._limit, target_mps=target,
+                        heading_rad=self._heading, reason=reason, limiting_sensor=limiting,
+                        covering=covering, speed_mps=speed, odometry_fresh=odom_fresh)
+
+    def limit_for(self, heading_rad: float, now_s: float) -> float:
+        """Return the instantaneous limit (no rise limiting) for travel along a heading, m/s."""
+        return self._bound(heading_rad, now_s, self._odometry_fresh(now_s))[0]
+
+    def _odometry_fresh(self, now: float) -> bool:
+        return (self._odom is not None
+                and now - self._odom.arrival_s <= self.config.limits.odom_stale_after_s)
+
+    def covering(self, heading_rad: float) -> tuple[str, ...]:
+        """Return the sensors that cover travel along ``heading_rad``."""
+        return self._covering[heading_index(heading_rad, len(self._headings))]
+
+    def detection_latency_s(self, name: str) -> float:
+        """Worst-case detection latency of one sensor: measured when possible, else configured."""
+        st = self._states[name]
+        if st.periods.ready:
+            return st.periods.worst_s - self.schedule.slot_duration_s(name) + st.timeout_s
+        return self.schedule.timing(name).detection_latency_s
+
+    def _bound(self, heading: float, now: float,
+               odom_fresh: bool) -> tuple[float, str, str | None, tuple[str, ...]]:
+        lim = self.config.limits
+        robot = self.config.robot
+        covering = self.covering(heading)
+        fallback = min(lim.fallback_speed_mps, lim.max_speed_mps)
+        if not odom_fresh:
+            return fallback, 'odometry stale or missing', None, covering
+        if not covering:
+            return fallback, 'no sensor covers this direction', None, covering
+        best, reason, limiting = lim.max_speed_mps, 'clear', None
+        for name in covering:
+            st = self._states[name]
+            silent = st.heard_stamp is None or now - st.heard_stamp > lim.stale_after_s
+            if silent or (st.check is not None and st.check.verdict is Verdict.STUCK):
+                if fallback <= best:
+                    why = 'silent' if silent else 'stuck'
+                    best, reason, limiting = fallback, f'{name} {why}', name
+                continue
+            free = st.free_m if st.memory_m is None else min(st.free_m, st.memory_m)
+            latency = (self.detection_latency_s(name) + robot.reaction_time_s
+                       + max(0.0, now - st.free_stamp))
+            speed = max_safe_speed(free, latency, robot.decel_mps2, lim.margin_m)
+            if speed < best:
+                best, limiting = speed, name
+                remembered = ' (remembered)' if st.memory_m is not None else ''
+                reason = (f'{name}: {free:.2f} m free{remembered}, latency {latency:.3f} s')
+        return min(best, lim.max_speed_mps), reason, limiting, covering
+
+    def _rise_limited(self, target: float, now: float) -> float:
+        if math.isnan(self._limit) or target <= self._limit:
+            self._limit_time = now
+            return target
+        dt = max(0.0, now - self._limit_time)
+        self._limit_time = now
+        return min(target, self._limit + self.config.limits.rise_rate_mps2 * dt)
+
+    def _check_overspeed(self, speed: float, now: float) -> None:
+        lim = self.config.limits
+        excess = speed - self._limit
+        if excess <= lim.overspeed_tolerance_mps:
+            if self._excess_since is not None:
+                self._close(None, 'overspeed', now)
+            self._excess_since = None
+            return
+        if self._excess_since is None:
+            self._excess_since = now
+            self._excess_peak = 0.0
+            self._excess_allow = (lim.overspeed_grace_s + self.config.robot.reaction_time_s
+                                  + excess / self.config.robot.decel_mps2)
+        self._excess_peak = max(self._excess_peak, excess)
+        if now - self._excess_since > self._excess_allow:
+            detail = (f'speed up to {self._excess_peak:.2f} m/s above the limit for longer '
+                      f'than the {self._excess_allow:.2f} s braking allowance')
+            self._stretch(None, 'overspeed', self._excess_since, detail)
+            self._open[('overspeed', None)].t_last = now
+
+    # ------------------------------------------------------------------ status and events
+
+    def status(self, name: str, now_s: float) -> SensorStatus:
+        """Return what the engine knows of sensor ``name`` at ``now_s``."""
+        st = self._states[name]
+        lim = self.config.limits
+        since = st.heard_stamp
+        silent_for = math.inf if since is None else max(0.0, now_s - since)
+        check = st.check
+        return SensorStatus(
+            name=name, verdict=None if check is None else check.verdict,
+            reason='no reading yet' if check is None else check.reason,
+            last_range_m=math.nan if check is None else check.range_m,
+            silent_for_s=silent_for, silent=silent_for > lim.stale_after_s,
+            free_distance_m=st.free_m, memory_m=st.memory_m,
+            latency_s=self.detection_latency_s(name), period_median_s=st.periods.median_s,
+            period_worst_s=st.periods.worst_s, counts=dict(st.counts))
+
+    def statuses(self, now_s: float) -> tuple[SensorStatus, ...]:
+        """Return every sensor's status in configuration order."""
+        return tuple(self.status(n, now_s) for n in self._states)
+
+    def open_events(self) -> tuple[Event, ...]:
+        """Return findings still in progress (t_end is the latest time seen so far)."""
+        return tuple(Event(e.kind, e.sensor, e.t_start, e.t_last, e.detail)
+                     for e in self._open.values())
+
+    def pop_events(self) -> list[Event]:
+        """Return and forget the findings that ended since the last call."""
+        out, self._closed = self._closed, []
+        return out
+
+    def finish(self) -> list[Event]:
+        """Close every open finding at its last time seen and return all not yet popped."""
+        self._close_all(None)
+        return self.pop_events()
+
+    def _stretch(self, sensor: str | None, kind: str, t: float, detail: str) -> None:
+        ev = self._open.get((kind, sensor))
+        if ev is None:
+            self._open[(kind, sensor)] = _OpenEvent(kind, sensor, t, detail)
+        else:
+            ev.t_last = max(ev.t_last, t)
+
+    def _close(self, sensor: str | None, kind: str, t_end: float | None = None) -> None:
+        ev = self._open.pop((kind, sensor), None)
+        if ev is not None:
+            end = ev.t_last if t_end is None else max(ev.t_last, t_end)
+            self._closed.append(Event(kind, sensor, ev.t_start, end, ev.detail))
+
+    def _close_other_stretches(self, sensor: str, keep: Iterable[str]) -> None:
+        keep = set(keep) | {'slot_clash'}
+        for kind, who in list(self._open):
+            if who == sensor and kind not in keep:
+                self._close(sensor, kind)
+
+    def _close_all(self, t_end: float | None) -> None:
+        for kind, who in list(self._open):
+            self._close(who, kind, t_end)

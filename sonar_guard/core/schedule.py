@@ -1,0 +1,195 @@
+"""Firing schedule: slots, cycle time, measured periods, crosstalk risk and detection latency.
+
+Sensors fire one slot after another; sensors sharing a slot fire together. A slot lasts its
+configured ``slot_duration`` or, when that is 0, the echo timeout 2R/c of its longest-range
+sensor. A new obstacle that appears just after a sensor's slot is seen, at worst, one cycle
+later plus the echo's flight time: ``cycle - own slot + 2R/c``.
+
+Times in seconds, ranges in metres.
+"""
+from __future__ import annotations
+
+from collections import deque
+from collections.abc import Sequence
+from dataclasses import dataclass
+import math
+import statistics
+
+from sonar_guard.core.acoustics import echo_timeout
+from sonar_guard.core.config import Config, SensorConfig
+
+__all__ = [
+    'ClashDetector',
+    'FiringSlot',
+    'PeriodTracker',
+    'Schedule',
+    'SensorTiming',
+    'estimated_firing_time',
+    'slot_need_s',
+]
+
+_CLASH_FRACTION = 0.9  # firings closer than this share of an echo timeout are a clash
+_MIN_PERIODS = 5  # measured periods needed before they replace the configured cycle
+
+
+def slot_need_s(sensor: SensorConfig) -> float:
+    """Return how long this sensor needs its slot to last, s."""
+    if sensor.slot_duration_s > 0:
+        return sensor.slot_duration_s
+    return echo_timeout(sensor.max_range_m, sensor.air_temperature_c)
+
+
+@dataclass(frozen=True, slots=True)
+class FiringSlot:
+    """One firing slot: which sensors fire in it and how long it lasts (s)."""
+
+    slot: int
+    sensors: tuple[str, ...]
+    duration_s: float
+
+
+@dataclass(frozen=True, slots=True)
+class SensorTiming:
+    """Timing budget of one sensor from the configured schedule (s, m)."""
+
+    name: str
+    slot: int
+    echo_timeout_s: float
+    blind_range_m: float
+    cycle_s: float
+    detection_latency_s: float
+
+
+class Schedule:
+    """The configured firing schedule of every sensor."""
+
+    __slots__ = ('_timing', 'cycle_s', 'slots')
+
+    def __init__(self, sensors: Sequence[SensorConfig]) -> None:
+        by_slot: dict[int, list[SensorConfig]] = {}
+        for s in sensors:
+            by_slot.setdefault(s.slot, []).append(s)
+        self.slots: tuple[FiringSlot, ...] = tuple(
+            FiringSlot(k, tuple(s.name for s in group), max(slot_need_s(s) for s in group))
+            for k, group in sorted(by_slot.items()))
+        self.cycle_s: float = math.fsum(slot.duration_s for slot in self.slots)
+        durations = {slot.slot: slot.duration_s for slot in self.slots}
+        self._timing = {}
+        for s in sensors:
+            timeout = echo_timeout(s.max_range_m, s.air_temperature_c)
+            self._timing[s.name] = SensorTiming(
+                name=s.name, slot=s.slot, echo_timeout_s=timeout, blind_range_m=s.min_range_m,
+                cycle_s=self.cycle_s,
+                detection_latency_s=self.cycle_s - durations[s.slot] + timeout)
+
+    @classmethod
+    def from_config(cls, config: Config) -> Schedule:
+        """Build the schedule of ``config``'s sensors."""
+        return cls(config.sensors)
+
+    def timing(self, name: str) -> SensorTiming:
+        """Return the configured timing of sensor ``name``."""
+        return self._timing[name]
+
+    def timings(self) -> tuple[SensorTiming, ...]:
+        """Return every sensor's timing in configuration order."""
+        return tuple(self._timing.values())
+
+    def slot_duration_s(self, name: str) -> float:
+        """Return the duration of the slot sensor ``name`` fires in, s."""
+        slot = self._timing[name].slot
+        return next(s.duration_s for s in self.slots if s.slot == slot)
+
+
+class PeriodTracker:
+    """Measured time between one sensor's consecutive readings over a sliding window (s)."""
+
+    __slots__ = ('_last', '_periods', '_worst')
+
+    def __init__(self, window: int = 50) -> None:
+        self._periods: deque[float] = deque(maxlen=window)
+        self._last = math.nan
+        self._worst: float | None = None
+
+    def add(self, stamp_s: float) -> None:
+        """Record a reading stamped ``stamp_s``."""
+        if math.isfinite(self._last) and stamp_s > self._last:
+            self._periods.append(stamp_s - self._last)
+            self._worst = None
+        self._last = stamp_s
+
+    def reset(self) -> None:
+        """Forget every period (after a clock jump)."""
+        self._periods.clear()
+        self._last = math.nan
+        self._worst = None
+
+    @property
+    def count(self) -> int:
+        """How many periods the window holds."""
+        return len(self._periods)
+
+    @property
+    def ready(self) -> bool:
+        """True when enough periods were seen to trust the measurement."""
+        return len(self._periods) >= _MIN_PERIODS
+
+    @property
+    def median_s(self) -> float:
+        """Median period, s (NaN when none)."""
+        return statistics.median(self._periods) if self._periods else math.nan
+
+    @property
+    def worst_s(self) -> float:
+        """Longest period in the window, s (NaN when none)."""
+        if not self._periods:
+            return math.nan
+        if self._worst is None:
+            self._worst = max(self._periods)
+        return self._worst
+
+
+def estimated_firing_time(stamp_s: float, range_m: float, sensor: SensorConfig) -> float:
+    """Estimate when the pulse left, from an echo-time stamp and its range, s.
+
+    A finite in-range reading flew ``2r/c``; a reading at or beyond max_range waited the whole
+    echo timeout; anything else (NaN, -inf) is taken as fired at its stamp.
+    """
+    c_timeout = echo_timeout(sensor.max_range_m, sensor.air_temperature_c)
+    if math.isnan(range_m) or range_m < 0:
+        return stamp_s
+    if range_m >= sensor.max_range_m:
+        return stamp_s - c_timeout
+    return stamp_s - c_timeout * range_m / sensor.max_range_m
+
+
+class ClashDetector:
+    """Flag sensors of different slots whose pulses are in the air at the same time."""
+
+    __slots__ = ('_last_fire', '_sensors', '_timeouts')
+
+    def __init__(self, sensors: Sequence[SensorConfig]) -> None:
+        self._sensors = {s.name: s for s in sensors}
+        self._timeouts = {s.name: echo_timeout(s.max_range_m, s.air_temperature_c)
+                          for s in sensors}
+        self._last_fire: dict[str, float] = {}
+
+    def reset(self) -> None:
+        """Forget every firing (after a clock jump)."""
+        self._last_fire.clear()
+
+    def check(self, name: str, stamp_s: float, range_m: float) -> tuple[str, float] | None:
+        """Record a reading; return (other sensor, gap s) when it clashes with one, else None."""
+        me = self._sensors[name]
+        fire = estimated_firing_time(stamp_s, range_m, me)
+        self._last_fire[name] = fire
+        worst: tuple[str, float] | None = None
+        for other, other_fire in self._last_fire.items():
+            if other == name or self._sensors[other].slot == me.slot:
+                continue
+            gap = fire - other_fire
+            first_timeout = self._timeouts[other] if gap >= 0 else self._timeouts[name]
+            if abs(gap) < _CLASH_FRACTION * first_timeout:
+                if worst is None or abs(gap) < abs(worst[1]):
+                    worst = (other, gap)
+        return worst

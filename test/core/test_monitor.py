@@ -1,0 +1,302 @@
+"""The engine: scripted scenarios on the two-sensor test robot, and invariants."""
+from __future__ import annotations
+
+import math
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+import numpy as np
+import pytest
+from testkit import make_config
+
+from sonar_guard.core.monitor import Monitor, OdometrySample
+from sonar_guard.core.readings import RangeReading, Verdict
+
+# Settings shared by the scenarios: no rise limiting unless a test asks for it, so the limit
+# equals the instantaneous bound; 20 degC so the speed of sound is reference.md F1 at 20 degC;
+# fixed ranges while driving would be stuck, so stuck is off here and tested on its own.
+SCENARIO = {'limits.rise_rate': 100.0, 'sonar.air_temperature': 20.0,
+            'sonar.stuck_count': 100000,
+            'limits.max_speed': 1.5, 'robot.decel': 0.7, 'robot.reaction_time': 0.12,
+            'limits.margin': 0.1}
+C20 = 331.3 * math.sqrt(1 + 20.0 / 273.15)  # reference.md F1
+TIMEOUT = 2 * 4.0 / C20  # echo timeout at the default max_range 4.0 m: one slot
+CYCLE = 2 * TIMEOUT  # two sensors, one slot each
+
+
+def v_max(free, latency, decel, margin):
+    """Closed form of reference.md sec. 5: v = -aT + sqrt((aT)^2 + 2ad), 0 when d <= 0."""
+    d = free - margin
+    if d <= 0:
+        return 0.0
+    return -decel * latency + math.sqrt((decel * latency) ** 2 + 2 * decel * d)
+
+
+class Run:
+    """Feed a monitor the way a robot would: odometry at 50 Hz, sensors firing slot by slot."""
+
+    def __init__(self, overrides=None):
+        params = dict(SCENARIO)
+        params.update(overrides or {})
+        self.config = make_config(params)
+        self.m = Monitor(self.config)
+        self.t = 0.0
+        self.stamps: dict[str, list[float]] = {'ahead': [], 'behind': []}
+        self.ranges: dict[str, list[float]] = {'ahead': [], 'behind': []}
+        self.decision = None
+
+    def drive(self, duration, vx, ahead=lambda t: math.inf, behind=lambda t: math.inf,
+              silent=(), vy=0.0):
+        """Run for ``duration`` s at body speed vx; range functions give each sensor's echo."""
+        inputs = []
+        for k in range(int(round(duration / 0.02))):
+            t = self.t + k * 0.02
+            inputs.append((t, 0, 'odom', None))
+        k = 0
+        while True:
+            fire0 = self.t + k * CYCLE
+            if fire0 >= self.t + duration:
+                break
+            for slot, (name, fn) in enumerate((('ahead', ahead), ('behind', behind))):
+                fire = fire0 + slot * TIMEOUT
+                if name in silent:
+                    continue
+                r = fn(fire)
+                tof = 2 * r / C20 if math.isfinite(r) and 0 <= r < 4.0 else TIMEOUT
+                inputs.append((fire + tof, 1, name, r))
+            k += 1
+        inputs.sort(key=lambda x: (x[0], x[1]))
+        for t, _, kind, r in inputs:
+            if kind == 'odom':
+                self.m.on_odometry(OdometrySample(t, vx, vy, 0.0, t))
+            else:
+                self.m.on_range(RangeReading(kind, t, r, t))
+                self.stamps[kind].append(t)
+                self.ranges[kind].append(r)
+            self.decision = self.m.tick(t)
+        self.t += duration
+        return self.decision
+
+    def measured_latency(self, name):
+        """Worst period over the last 50 (numpy) - own slot + own echo timeout."""
+        stamps = np.asarray(self.stamps[name][-51:])
+        return float(np.max(np.diff(stamps))) - TIMEOUT + TIMEOUT
+
+
+def test_clear_path_gives_max_speed():
+    """Nothing in range on either side: the limit is limits.max_speed."""
+    run = Run()
+    d = run.drive(1.0, vx=0.4)
+    assert d.limit_mps == 1.5
+    assert d.covering == ('ahead',)
+    assert d.odometry_fresh
+
+
+def test_obstacle_ahead_gives_the_closed_form_limit():
+    """Limit = v_max(range - edge offset, latency + reaction + age) (reference.md sec. 5)."""
+    run = Run()
+    run.drive(1.0, vx=0.3, ahead=lambda t: 1.2)
+    d = run.decision
+    last = run.stamps['ahead'][-1]
+    latency = run.measured_latency('ahead') + 0.12 + (d.time_s - last)
+    # the sensor sits on the front edge facing out: edge offset 0, free = range
+    assert d.limit_mps == pytest.approx(v_max(1.2, latency, 0.7, 0.1), rel=1e-9)
+    assert d.limiting_sensor == 'ahead'
+    assert d.limit_mps < 1.5
+
+
+def test_before_periods_are_measured_the_configured_latency_is_used():
+    """With too few readings the schedule's cycle - own slot + timeout is the latency."""
+    run = Run()
+    run.drive(0.02, vx=0.3, silent=('ahead', 'behind'))  # fresh odometry, no readings
+    r = 1.0
+    stamp = run.t + 2 * r / C20
+    run.m.on_range(RangeReading('ahead', stamp, r, stamp))
+    d = run.m.tick(stamp)
+    latency = CYCLE - TIMEOUT + TIMEOUT + 0.12  # design.md detection_latency + reaction
+    assert d.limit_mps == pytest.approx(v_max(r, latency, 0.7, 0.1), rel=1e-9)
+
+
+def test_reverse_travel_is_limited_by_the_rear_sensor():
+    """Driving backwards, only the rear-facing sensor counts (odometry twist sign)."""
+    run = Run()
+    forward = run.drive(1.0, vx=0.3, ahead=lambda t: 0.4, behind=lambda t: 1.5)
+    backward = run.drive(1.0, vx=-0.3, ahead=lambda t: 0.4, behind=lambda t: 1.5)
+    assert forward.covering == ('ahead',) and backward.covering == ('behind',)
+    assert backward.heading_rad == pytest.approx(math.pi)
+    latency = run.measured_latency('behind') + 0.12 + (backward.time_s - run.stamps['behind'][-1])
+    assert backward.limit_mps == pytest.approx(v_max(1.5, latency, 0.7, 0.1), rel=1e-9)
+    assert forward.limit_mps < backward.limit_mps
+
+
+def test_silent_sensor_drops_the_limit_to_fallback_after_stale_after():
+    """No usable reading for limits.stale_after: fallback_speed and a stale event."""
+    run = Run({'limits.fallback_speed': 0.2, 'limits.stale_after': 0.3})
+    run.drive(1.0, vx=0.3)
+    last = run.stamps['ahead'][-1]
+    d = run.drive(1.0, vx=0.3, silent=('ahead',))
+    assert d.limit_mps == 0.2
+    assert d.reason == 'ahead silent'
+    # exactly when: just before and just after last + stale_after
+    probe = Run({'limits.fallback_speed': 0.2, 'limits.stale_after': 0.3})
+    probe.drive(1.0, vx=0.0)
+    last_p = probe.stamps['ahead'][-1]
+    probe.m.on_odometry(OdometrySample(last_p + 0.29, 0.0, 0.0, 0.0, last_p + 0.29))
+    assert probe.m.tick(last_p + 0.299).limit_mps == 1.5
+    assert probe.m.tick(last_p + 0.301).limit_mps == 0.2
+    events = [e for e in run.m.finish() if e.kind == 'stale']
+    assert [(e.sensor, e.t_start) for e in events] == [('ahead', last)]
+
+
+def test_stale_odometry_drops_the_limit_to_fallback():
+    """Without fresh odometry the robot's motion is unknown: fallback_speed."""
+    run = Run({'limits.fallback_speed': 0.1, 'limits.odom_stale_after': 0.25})
+    run.drive(0.5, vx=0.2)
+    t = run.t
+    run.m.on_range(RangeReading('ahead', t + 0.3, math.inf, t + 0.3))
+    d = run.m.tick(t + 0.3)
+    assert d.limit_mps == 0.1 and not d.odometry_fresh
+    assert any(e.kind == 'stale' and e.sensor is None for e in run.m.finish())
+
+
+def test_obstacle_lost_into_no_echo_is_remembered_and_dead_reckoned():
+    """An echo lost while closing in keeps the limit low; odometry moves the memory."""
+    run = Run()
+    speed = 0.25
+    start = 1.0
+
+    def approach(t):
+        return start - speed * t
+
+    run.drive(1.2, vx=speed, ahead=approach)  # closes in from 1.0 m to about 0.7 m
+    r0, t0 = run.ranges['ahead'][-1], run.stamps['ahead'][-1]
+    # the echo is lost (a smooth surface turned the pulse away): +inf from now on
+    d = run.drive(0.6, vx=speed, ahead=lambda t: math.inf)
+    last_odom = run.t - 0.02
+    memory = r0 - speed * (last_odom - t0)  # constant speed dead reckoning
+    latency = run.measured_latency('ahead') + 0.12 + (d.time_s - run.stamps['ahead'][-1])
+    assert d.limit_mps == pytest.approx(v_max(memory, latency, 0.7, 0.1), rel=1e-6)
+    assert '(remembered)' in d.reason
+    # a trusted echo far away clears the memory
+    d = run.drive(0.5, vx=speed, ahead=lambda t: 3.5)
+    assert '(remembered)' not in d.reason and d.limit_mps > 1.0
+    lost = [e for e in run.m.finish() if e.kind == 'no_echo']
+    assert len(lost) == 1 and lost[0].sensor == 'ahead'
+    assert lost[0].t_start > t0
+
+
+def test_no_echo_without_an_approach_is_an_open_path():
+    """Open space reads no echo and is not a finding."""
+    run = Run()
+    run.drive(1.0, vx=0.5)
+    assert not [e for e in run.m.finish() if e.kind == 'no_echo']
+
+
+def test_blind_reading_stops_the_robot_in_that_direction():
+    """Something inside the blind range: no free distance at all."""
+    run = Run()
+    d = run.drive(0.5, vx=0.2, ahead=lambda t: -math.inf)
+    assert d.limit_mps == 0.0
+    blind = [e for e in run.m.finish() if e.kind == 'blind']
+    assert blind and blind[0].t_start == run.stamps['ahead'][0]
+
+
+def test_limit_drops_at_once_and_rises_at_rise_rate():
+    """limits.rise_rate bounds how fast the limit climbs back."""
+    run = Run({'limits.rise_rate': 0.5})
+    low = run.drive(1.0, vx=0.1, ahead=lambda t: 0.5).limit_mps
+    decisions = []
+    for _ in range(10):
+        decisions.append(run.drive(0.1, vx=0.1))
+    limits = [low] + [d.limit_mps for d in decisions]
+    times = [run.t - 1.0 - 0.02] + [d.time_s for d in decisions]
+    rises = np.diff(limits) / np.diff(times)
+    assert np.all(rises <= 0.5 + 1e-9)
+    assert limits[-1] > low
+
+
+def test_overspeed_is_reported_after_the_braking_allowance():
+    """Speed above the limit longer than grace + reaction + excess/decel is overspeed."""
+    run = Run({'limits.overspeed_grace': 0.2})
+    run.drive(3.0, vx=1.2, ahead=lambda t: 0.8)
+    events = [e for e in run.m.finish() if e.kind == 'overspeed']
+    assert len(events) == 1 and events[0].sensor is None
+    assert events[0].t_end - events[0].t_start > 0.2 + 0.12
+
+
+def test_short_excess_while_braking_is_not_overspeed():
+    """A robot that brakes at decel after the limit drops is not overspeeding."""
+    run = Run({'limits.overspeed_grace': 0.2})
+    run.drive(0.5, vx=0.6)
+    run.drive(0.1, vx=0.6, ahead=lambda t: 1.0)
+    run.drive(1.0, vx=0.3, ahead=lambda t: 1.0)
+    assert not [e for e in run.m.finish() if e.kind == 'overspeed']
+
+
+def test_jump_and_invalid_readings_become_events():
+    """A jump is a one-reading event; a run of NaN is one invalid stretch."""
+    run = Run()
+    run.drive(0.5, vx=0.0, ahead=lambda t: 2.0)
+    run.drive(0.1, vx=0.0, ahead=lambda t: 0.6)
+    run.drive(0.3, vx=0.0, ahead=lambda t: math.nan)
+    run.drive(0.3, vx=0.0, ahead=lambda t: 0.6)
+    events = run.m.finish()
+    jumps = [e for e in events if e.kind == 'jump']
+    invalid = [e for e in events if e.kind == 'invalid']
+    assert len(jumps) == 1 and jumps[0].t_start == jumps[0].t_end
+    assert len(invalid) == 1 and invalid[0].t_end > invalid[0].t_start
+
+
+def test_jump_keeps_the_nearer_of_old_and_new_range():
+    """A suspect reading never widens the free distance on its own."""
+    run = Run()
+    run.drive(0.5, vx=0.1, ahead=lambda t: 0.9)
+    before = run.decision.limit_mps
+    d = run.drive(0.03, vx=0.1, ahead=lambda t: 3.0)
+    assert run.m.status('ahead', d.time_s).verdict is Verdict.JUMP
+    assert d.limit_mps <= before + 1e-9
+
+
+def test_backward_clock_jump_resets_histories():
+    """Time going back (bag loop, sim restart) resets every history once."""
+    run = Run()
+    run.drive(1.0, vx=0.2, ahead=lambda t: 1.0)
+    run.t = 0.0
+    d = run.drive(0.04, vx=0.2, silent=('ahead', 'behind'))
+    assert run.m.clock_resets == 1
+    assert d.limit_mps == 0.0  # readings are gone: silent, fallback_speed 0
+
+
+def test_stuck_sensor_drops_the_limit_to_fallback_but_is_not_silent():
+    """A reading frozen while the robot drives toward it is untrusted: fallback_speed."""
+    run = Run({'sonar.stuck_count': 5, 'sonar.stuck_travel': 0.1,
+               'limits.fallback_speed': 0.15})
+    d = run.drive(1.0, vx=0.4, ahead=lambda t: 1.8)
+    assert d.limit_mps == 0.15 and d.reason == 'ahead stuck'
+    events = run.m.finish()
+    assert [e.kind for e in events if e.sensor == 'ahead'] == ['stuck']
+
+
+def test_status_reports_counts_and_period():
+    """Diagnostics see verdict counts and the measured period."""
+    run = Run()
+    run.drive(1.0, vx=0.2, ahead=lambda t: 1.0)
+    status = run.m.status('ahead', run.t)
+    assert status.counts['ok'] == len(run.stamps['ahead'])
+    assert status.period_median_s == pytest.approx(float(np.median(np.diff(
+        run.stamps['ahead'][-51:]))), rel=1e-9)  # numpy
+    assert not status.silent
+
+
+@settings(max_examples=60, deadline=None)
+@given(r1=st.floats(0.0, 4.5), r2=st.floats(0.0, 4.5), age=st.floats(0.0, 0.2))
+def test_more_free_distance_never_lowers_the_engine_limit(r1, r2, age):
+    """Engine level: a farther obstacle gives a limit at least as high, within [0, max]."""
+    near, far = sorted((r1, r2))
+    limits = []
+    for r in (near, far):
+        m = Monitor(make_config(SCENARIO))
+        m.on_odometry(OdometrySample(0.0, 0.2, 0.0, 0.0, 0.0))
+        m.on_range(RangeReading('ahead', 0.01, r, 0.01))
+        limits.append(m.tick(0.01 + age).limit_mps)
+    assert 0.0 <= limits[0] <= limits[1] <= 1.5

@@ -1,0 +1,114 @@
+"""Firing schedule, measured periods, crosstalk risk and detection latency."""
+from __future__ import annotations
+
+import math
+
+from hypothesis import given
+from hypothesis import strategies as st
+import numpy as np
+import pytest
+from testkit import make_config
+
+from sonar_guard.core.acoustics import detection_latency
+from sonar_guard.core.schedule import ClashDetector, PeriodTracker, Schedule, estimated_firing_time
+
+
+def c_f1(temp_c):
+    """Speed of sound, reference.md F1: 331.3*sqrt(1 + T/273.15) m/s."""
+    return 331.3 * math.sqrt(1 + temp_c / 273.15)
+
+
+def test_slot_lasts_the_echo_timeout_of_its_longest_range_sensor():
+    """slot_duration 0: the slot lasts 2R/c of its longest-range sensor (reference.md sec. 2)."""
+    config = make_config({'sensors.behind.slot': 0, 'sensors.behind.max_range': 2.5,
+                          'sonar.max_range': 4.5, 'sonar.air_temperature': 10.0})
+    schedule = Schedule.from_config(config)
+    assert len(schedule.slots) == 1
+    # reference.md sec. 2: T = 10 degC, R = 4.5 m -> 26.6817 ms
+    assert schedule.slots[0].duration_s == pytest.approx(26.6817e-3, abs=1e-6)
+    assert schedule.cycle_s == schedule.slots[0].duration_s
+
+
+def test_cycle_is_the_sum_of_slots_and_latency_follows_the_contract_formula():
+    """latency = cycle - own slot + own echo timeout (design.md detection_latency)."""
+    config = make_config({'sensors.ahead.max_range': 6.0, 'sensors.behind.max_range': 2.5,
+                          'sonar.air_temperature': 20.0})
+    schedule = Schedule.from_config(config)
+    t_ahead = 2 * 6.0 / c_f1(20.0)  # reference.md: 20 degC, 6.0 m -> 34.9635 ms
+    t_behind = 2 * 2.5 / c_f1(20.0)
+    assert t_ahead == pytest.approx(34.9635e-3, abs=1e-6)
+    assert schedule.cycle_s == pytest.approx(t_ahead + t_behind, rel=1e-12)
+    behind = schedule.timing('behind')
+    # cycle (t_ahead + t_behind) - own slot (t_behind) + own echo timeout (t_behind)
+    assert behind.detection_latency_s == pytest.approx(t_ahead + t_behind, rel=1e-12)
+    assert behind.detection_latency_s == pytest.approx(
+        detection_latency([t_ahead, t_behind], 1, 2.5, 20.0), rel=1e-12)
+    assert behind.blind_range_m == config.sensor('behind').min_range_m
+
+
+def test_configured_slot_duration_replaces_the_echo_timeout():
+    """A non-zero slot_duration is the slot length, whatever the range."""
+    config = make_config({'sonar.slot_duration': 0.05})
+    schedule = Schedule.from_config(config)
+    assert [s.duration_s for s in schedule.slots] == [0.05, 0.05]
+    assert schedule.cycle_s == pytest.approx(0.1)
+
+
+@given(st.lists(st.floats(0.01, 0.2), min_size=6, max_size=80))
+def test_measured_period_median_and_worst_match_numpy(gaps):
+    """Median and worst over the window agree with numpy.median and numpy.max."""
+    tracker = PeriodTracker(window=50)
+    stamps = np.cumsum([0.0, *gaps])
+    for t in stamps:
+        tracker.add(float(t))
+    window = np.diff(stamps)[-50:]
+    assert tracker.count == len(window)
+    assert tracker.median_s == pytest.approx(float(np.median(window)), rel=1e-9)  # numpy
+    assert tracker.worst_s == pytest.approx(float(np.max(window)), rel=1e-9)  # numpy
+    assert tracker.ready
+
+
+def test_period_tracker_needs_a_few_periods_before_it_is_ready():
+    """Two readings are not a measurement of the schedule."""
+    tracker = PeriodTracker()
+    for t in (1.0, 1.1, 1.2):
+        tracker.add(t)
+    assert not tracker.ready
+    assert math.isnan(PeriodTracker().median_s)
+
+
+def test_firing_time_is_the_stamp_minus_the_flight_time():
+    """An echo-time stamp minus 2r/c is when the pulse left."""
+    sensor = make_config({'sonar.air_temperature': 20.0}).sensor('ahead')
+    fired = estimated_firing_time(5.0, 1.5, sensor)
+    assert fired == pytest.approx(5.0 - 2 * 1.5 / c_f1(20.0), rel=1e-12)
+    assert estimated_firing_time(5.0, math.inf, sensor) == pytest.approx(
+        5.0 - 2 * sensor.max_range_m / c_f1(20.0))
+    assert estimated_firing_time(5.0, math.nan, sensor) == 5.0
+
+
+class TestClash:
+    """Pulses of different slots in the air together risk crosstalk."""
+
+    def test_sensors_of_different_slots_firing_within_one_timeout_clash(self):
+        """Fired 5 ms apart with a 23 ms echo timeout: the second hears the first."""
+        config = make_config({'sonar.air_temperature': 20.0})
+        clash = ClashDetector(config.sensors)
+        assert clash.check('ahead', 1.000, math.nan) is None
+        other, gap = clash.check('behind', 1.005, math.nan)
+        assert other == 'ahead' and gap == pytest.approx(0.005)
+
+    def test_back_to_back_slots_do_not_clash(self):
+        """Firing a full echo timeout apart is the schedule working as designed."""
+        config = make_config({'sonar.air_temperature': 20.0})
+        timeout = 2 * config.sensor('ahead').max_range_m / c_f1(20.0)
+        clash = ClashDetector(config.sensors)
+        clash.check('ahead', 1.0, math.nan)
+        assert clash.check('behind', 1.0 + timeout, math.nan) is None
+
+    def test_sensors_sharing_a_slot_never_clash(self):
+        """Sensors in one slot fire together on purpose."""
+        config = make_config({'sensors.behind.slot': 0})
+        clash = ClashDetector(config.sensors)
+        clash.check('ahead', 1.0, math.nan)
+        assert clash.check('behind', 1.0, math.nan) is None
