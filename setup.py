@@ -35,6 +35,8 @@ setup(
             'rosbags>=0.10',
             'colcon-common-extensions>=0.3',
             'ruff>=0.4',
+            'mypy>=1.5',
+            'types-PyYAML',
         ],
     },
     zip_safe=True,

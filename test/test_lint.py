@@ -29,3 +29,12 @@ def test_ament_linter(module):
         pytest.skip(f'{module} is not installed (it comes with a full ROS 2 install)')
     main = importlib.import_module(f'{module}.main').main
     assert main(argv=[str(REPO / 'sonar_guard'), str(REPO / 'test')]) == 0
+
+
+def test_core_type_checks_strictly():
+    """mypy --strict on the pure core (style.md: typed results, mypy on core/)."""
+    if importlib.util.find_spec('mypy') is None:
+        pytest.skip('mypy is not installed (pip install -e .[test] brings it)')
+    proc = subprocess.run([sys.executable, '-m', 'mypy', 'sonar_guard/core'], cwd=REPO,
+                          capture_output=True, text=True, timeout=600)
+    assert proc.returncode == 0, proc.stdout + proc.stderr

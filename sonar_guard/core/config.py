@@ -72,11 +72,13 @@ def _num(value: float) -> str:
     return f'{value:g}'
 
 
-def _f(key, default, unit, description, low=None, high=None, *, low_open=False, restart=False):
+def _f(key: str, default: float, unit: str, description: str, low: float | None = None,
+       high: float | None = None, *, low_open: bool = False, restart: bool = False) -> ParamSpec:
     return ParamSpec(key, 'float', default, unit, description, low, high, low_open, restart)
 
 
-def _i(key, default, unit, description, low=None, high=None, *, restart=False):
+def _i(key: str, default: int, unit: str, description: str, low: int | None = None,
+       high: int | None = None, *, restart: bool = False) -> ParamSpec:
     return ParamSpec(key, 'int', default, unit, description, low, high, False, restart)
 
 
@@ -296,7 +298,8 @@ def _sensor_values(s: SensorConfig) -> dict[str, Any]:
 # YAML -> flat parameters
 
 
-def parse_params_yaml(text: str, *, node_name: str = NODE_NAME, source: str = '') -> dict:
+def parse_params_yaml(text: str, *, node_name: str = NODE_NAME,
+                      source: str = '') -> dict[str, Any]:
     """Parse ROS 2 parameter-file text into a flat ``{dotted.key: value}`` mapping.
 
     Sections apply in file order of precedence: ``/**`` first, then the node's own section
@@ -315,8 +318,8 @@ def parse_params_yaml(text: str, *, node_name: str = NODE_NAME, source: str = ''
         raise ConfigError(
             [f'top level must be a mapping of node names, got {type(data).__name__}'],
             source=source)
-    wildcard: list[dict] = []
-    own: list[dict] = []
+    wildcard: list[dict[str, Any]] = []
+    own: list[dict[str, Any]] = []
     problems: list[str] = []
     for key, section in data.items():
         key_s = str(key)

@@ -22,7 +22,7 @@ import operator
 
 import numpy as np
 import numpy.typing as npt
-from transforms3d import affines, euler  # type: ignore[import-untyped]
+from transforms3d import affines, euler
 
 __all__ = [
     'Footprint',

@@ -26,6 +26,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 import math
+from typing import Any
 
 import numpy as np
 
@@ -85,7 +86,7 @@ class Event:
     t_end: float
     detail: str
 
-    def to_dict(self) -> dict:
+    def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of the contract (kind, sensor, t_start, t_end, detail)."""
         return {'kind': self.kind, 'sensor': self.sensor, 't_start': self.t_start,
                 't_end': self.t_end, 'detail': self.detail}

@@ -75,7 +75,7 @@ def test_max_safe_speed_matches_reference_rows(
 
 
 def test_max_safe_speed_with_no_latency_is_root_two() -> None:
-    """d = 1.25 m, T = 0, a = 0.8 gives exactly sqrt(2) m/s (reference.md section 5)."""
+    """With d = 1.25 m, T = 0 and a = 0.8, v_max is exactly sqrt(2) m/s (reference.md sec. 5)."""
     assert max_safe_speed(1.25, 0.0, 0.8) == pytest.approx(math.sqrt(2.0), rel=1e-12)
 
 

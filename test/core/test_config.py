@@ -191,3 +191,14 @@ class TestShippedConfig:
         """The shared test robot is what conftest says."""
         config = make_config()
         assert config.sensor_names == tuple(BASE_PARAMS['sensor_names'])
+
+
+# REP 103: SI units (metre, second, radian, hertz) and degrees Celsius for temperature;
+# m/s and m/s^2 are the SI derived units for speed and acceleration.
+REP_103_UNITS = {'', 'm', 's', 'rad', 'Hz', 'degC', 'm/s', 'm/s^2'}
+
+
+@pytest.mark.parametrize('spec', [*global_specs(), *sensor_specs('x')], ids=lambda s: s.key)
+def test_every_parameter_unit_is_rep_103(spec):
+    """No feet, degrees of angle, milliseconds or km/h anywhere in the parameters (REP 103)."""
+    assert spec.unit in REP_103_UNITS

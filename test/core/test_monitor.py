@@ -185,6 +185,19 @@ def test_obstacle_lost_into_no_echo_is_remembered_and_dead_reckoned():
     assert lost[0].t_start > t0
 
 
+def test_obstacle_lost_into_the_blind_zone_keeps_the_limit_at_zero():
+    """Closing in, then blind, then silence from the ring-down range: still stopped."""
+    run = Run()
+    speed = 0.2
+    run.drive(1.0, vx=speed, ahead=lambda t: 0.6 - speed * t)  # 0.6 m down to 0.4 m
+    run.drive(0.3, vx=speed, ahead=lambda t: 0.12)  # below min_range 0.15 m: blind
+    d = run.drive(0.5, vx=0.0, ahead=lambda t: math.inf)  # the ring-down hides it: no echo
+    assert d.limit_mps == 0.0
+    assert '(remembered)' in d.reason
+    kinds = [e.kind for e in run.m.finish() if e.sensor == 'ahead']
+    assert 'blind' in kinds
+
+
 def test_no_echo_without_an_approach_is_an_open_path():
     """Open space reads no echo and is not a finding."""
     run = Run()
