@@ -43,6 +43,7 @@ setup(
     entry_points={
         'console_scripts': [
             'sonar-guard = sonar_guard.cli:main',
+            'sonar_guard_node = sonar_guard.ros.node:main',
         ],
     },
 )

@@ -105,6 +105,7 @@ class Decision:
     covering: tuple[str, ...]
     speed_mps: float
     odometry_fresh: bool
+    fallback: bool = False  # True when sensing or odometry failed and fallback_speed applies
 
 
 @dataclass(frozen=True, slots=True)
@@ -146,15 +147,19 @@ class _SensorState:
                  'heard_stamp', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
+        self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
+        self.configure(config, footprint, stale_after_s)
+        self.periods = PeriodTracker()
+        self.counts = {v.value: 0 for v in Verdict}
+        self.reset()
+
+    def configure(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.config = config
         mount = mount_of(config)
         self.axis = beam_axis(mount)
         self.edge_m = edge_offset_m(mount, footprint)
         self.timeout_s = echo_timeout(config.max_range_m, config.air_temperature_c)
-        self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
-        self.periods = PeriodTracker()
-        self.counts = {v.value: 0 for v in Verdict}
-        self.reset()
+        self.validator.configure(config, stale_after_s=stale_after_s)
 
     def reset(self) -> None:
         self.validator.reset()
@@ -180,12 +185,21 @@ class Monitor:
     """
 
     def __init__(self, config: Config) -> None:
-        self.config = config
-        self.schedule = Schedule.from_config(config)
         lim = config.limits
         self._states = {s.name: _SensorState(s, config.robot.footprint, lim.stale_after_s)
                         for s in config.sensors}
         self._clash = ClashDetector(config.sensors)
+        self._derive(config)
+        self.clock_resets = 0
+        self._closed: list[Event] = []
+        self._open: dict[tuple[str, str | None], _OpenEvent] = {}
+        self._start = math.nan
+        self._reset_motion()
+
+    def _derive(self, config: Config) -> None:
+        """Compute everything that follows from the configuration alone."""
+        self.config = config
+        self.schedule = Schedule.from_config(config)
         count = HOLONOMIC_HEADINGS if config.robot.holonomic else 2
         self._headings = uniform_headings(count)
         table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint,
@@ -193,11 +207,21 @@ class Monitor:
         names = config.sensor_names
         self._covering: tuple[tuple[str, ...], ...] = tuple(
             tuple(n for n, c in zip(names, row) if c) for row in np.asarray(table, dtype=bool))
-        self.clock_resets = 0
-        self._closed: list[Event] = []
-        self._open: dict[tuple[str, str | None], _OpenEvent] = {}
-        self._start = math.nan
-        self._reset_motion()
+
+    def reconfigure(self, config: Config) -> None:
+        """Take new limits, braking, thresholds or mounts at once, keeping every history.
+
+        The sensor list and the footprint must stay the same (a restart changes those).
+        """
+        if config.sensor_names != self.config.sensor_names:
+            raise ValueError('the sensor list cannot change at run time: restart the monitor')
+        if config.robot.footprint != self.config.robot.footprint:
+            raise ValueError('the footprint cannot change at run time: restart the monitor')
+        for s in config.sensors:
+            self._states[s.name].configure(s, config.robot.footprint,
+                                           config.limits.stale_after_s)
+        self._clash = ClashDetector(config.sensors)
+        self._derive(config)
 
     # ------------------------------------------------------------------ inputs
 
@@ -377,13 +401,15 @@ class Monitor:
                     self._heading = math.atan2(vy, vx) % (2 * math.pi)
                 else:
                     self._heading = 0.0 if vx >= 0 else math.pi
-        target, reason, limiting, covering = self._bound(self._heading, now, odom_fresh)
+        target, reason, limiting, covering, fallback = self._bound(self._heading, now,
+                                                                    odom_fresh)
         self._limit = self._rise_limited(target, now)
         if odom_fresh:
             self._check_overspeed(speed, now)
         return Decision(time_s=now, limit_mps=self._limit, target_mps=target,
                         heading_rad=self._heading, reason=reason, limiting_sensor=limiting,
-                        covering=covering, speed_mps=speed, odometry_fresh=odom_fresh)
+                        covering=covering, speed_mps=speed, odometry_fresh=odom_fresh,
+                        fallback=fallback)
 
     def limit_for(self, heading_rad: float, now_s: float) -> float:
         """Return the instantaneous limit (no rise limiting) for travel along a heading, m/s."""
@@ -404,21 +430,23 @@ class Monitor:
             return st.periods.worst_s - self.schedule.slot_duration_s(name) + st.timeout_s
         return self.schedule.timing(name).detection_latency_s
 
-    def _bound(self, heading: float, now: float,
-               odom_fresh: bool) -> tuple[float, str, str | None, tuple[str, ...]]:
+    def _bound(self, heading: float, now: float, odom_fresh: bool
+               ) -> tuple[float, str, str | None, tuple[str, ...], bool]:
+        """Return (limit, reason, limiting sensor, covering sensors, fell back) for a heading."""
         lim = self.config.limits
         robot = self.config.robot
         covering = self.covering(heading)
         fallback = min(lim.fallback_speed_mps, lim.max_speed_mps)
         if not odom_fresh:
-            return fallback, 'odometry stale or missing', None, covering
+            return fallback, 'odometry stale or missing', None, covering, True
         if not covering:
-            return fallback, 'no sensor covers this direction', None, covering
-        best, reason, limiting = lim.max_speed_mps, 'clear', None
+            return fallback, 'no sensor covers this direction', None, covering, True
+        best, reason, limiting, fell_back = lim.max_speed_mps, 'clear', None, False
         for name in covering:
             st = self._states[name]
             silent = st.heard_stamp is None or now - st.heard_stamp > lim.stale_after_s
             if silent or (st.check is not None and st.check.verdict is Verdict.STUCK):
+                fell_back = True
                 if fallback <= best:
                     why = 'silent' if silent else 'stuck'
                     best, reason, limiting = fallback, f'{name} {why}', name
@@ -431,7 +459,7 @@ class Monitor:
                 best, limiting = speed, name
                 remembered = ' (remembered)' if st.memory_m is not None else ''
                 reason = (f'{name}: {free:.2f} m free{remembered}, latency {latency:.3f} s')
-        return min(best, lim.max_speed_mps), reason, limiting, covering
+        return min(best, lim.max_speed_mps), reason, limiting, covering, fell_back
 
     def _rise_limited(self, target: float, now: float) -> float:
         if math.isnan(self._limit) or target <= self._limit:

@@ -130,11 +130,15 @@ class ReadingValidator:
                  '_run_range', 'sensor', 'stale_after_s')
 
     def __init__(self, sensor: SensorConfig, *, stale_after_s: float) -> None:
+        self.configure(sensor, stale_after_s=stale_after_s)
+        self.reset()
+
+    def configure(self, sensor: SensorConfig, *, stale_after_s: float) -> None:
+        """Take new thresholds for the same sensor; the history is kept."""
         self.sensor = sensor
         self.stale_after_s = stale_after_s
         self._acoustic_blind_m = (blind_range(sensor.ring_down_s, sensor.air_temperature_c)
                                   if sensor.ring_down_s > 0 else 0.0)
-        self.reset()
 
     def reset(self) -> None:
         """Forget history (after a clock jump)."""

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 from testkit import make_config
 
+from sonar_guard.core.config import build_config
 from sonar_guard.core.monitor import Monitor, OdometrySample
 from sonar_guard.core.readings import RangeReading, Verdict
 
@@ -313,3 +314,29 @@ def test_more_free_distance_never_lowers_the_engine_limit(r1, r2, age):
         m.on_range(RangeReading('ahead', 0.01, r, 0.01))
         limits.append(m.tick(0.01 + age).limit_mps)
     assert 0.0 <= limits[0] <= limits[1] <= 1.5
+
+
+def test_reconfigure_takes_new_braking_at_once_and_keeps_history():
+    """A runtime change of decel changes the next limit; readings and periods stay."""
+    run = Run()
+    run.drive(1.0, vx=0.3, ahead=lambda t: 1.2)
+    before = run.m.tick(run.t).limit_mps
+    counts = run.m.status('ahead', run.t).counts['ok']
+    params = run.config.to_parameters()
+    params['robot.decel'] = 0.35
+    run.m.reconfigure(build_config(params))
+    d = run.m.tick(run.t)
+    last = run.stamps['ahead'][-1]
+    latency = run.measured_latency('ahead') + 0.12 + (d.time_s - last)
+    assert d.limit_mps == pytest.approx(v_max(1.2, latency, 0.35, 0.1), rel=1e-9)
+    assert d.limit_mps < before
+    assert run.m.status('ahead', run.t).counts['ok'] == counts
+
+
+def test_reconfigure_refuses_a_new_sensor_list():
+    """Sensors and footprint need a restart."""
+    run = Run()
+    params = run.config.to_parameters()
+    params['sensor_names'] = ['ahead']
+    with pytest.raises(ValueError, match='restart'):
+        run.m.reconfigure(build_config(params))

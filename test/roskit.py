@@ -1,0 +1,189 @@
+"""Helpers for tests that talk to the node over real DDS on loopback (importable as `roskit`).
+
+Each test run gets its own ROS_DOMAIN_ID and keeps discovery on this machine. The node runs
+in a subprocess; test publishers and subscribers live in the test process. Waiting is always
+on a condition with a generous timeout, never a bare sleep.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+import math
+import os
+from pathlib import Path
+import random
+import signal
+import subprocess
+import sys
+import time
+from typing import Any
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+DEFAULT_PARAMS = REPO / 'config' / 'sonar_guard.yaml'
+
+rclpy = pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
+
+from diagnostic_msgs.msg import DiagnosticArray  # noqa: E402
+from geometry_msgs.msg import Twist  # noqa: E402
+from nav_msgs.msg import Odometry  # noqa: E402
+from rclpy.node import Node  # noqa: E402
+from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy  # noqa: E402
+from sensor_msgs.msg import Range  # noqa: E402
+from std_msgs.msg import Float64  # noqa: E402
+
+from sonar_guard.core.config import Config  # noqa: E402
+
+LIMIT_QOS = QoSProfile(depth=1, history=HistoryPolicy.KEEP_LAST,
+                       reliability=ReliabilityPolicy.RELIABLE,
+                       durability=DurabilityPolicy.TRANSIENT_LOCAL)
+
+
+def isolate_ros_environment() -> dict[str, str]:
+    """Give this test run its own DDS domain on loopback; return the environment to use."""
+    if 'SONAR_GUARD_TEST_DOMAIN' not in os.environ:
+        os.environ['SONAR_GUARD_TEST_DOMAIN'] = str(random.Random(os.getpid()).randint(1, 100))
+    os.environ['ROS_DOMAIN_ID'] = os.environ['SONAR_GUARD_TEST_DOMAIN']
+    os.environ['ROS_LOCALHOST_ONLY'] = '1'  # Humble and Jazzy
+    os.environ['ROS_AUTOMATIC_DISCOVERY_RANGE'] = 'LOCALHOST'  # Jazzy and newer
+    return dict(os.environ)
+
+
+class NodeProcess:
+    """The sonar_guard node in a subprocess, with its output kept for failure messages."""
+
+    def __init__(self, params_file: Path, extra: Mapping[str, Any] | None = None,
+                 log_path: Path | None = None) -> None:
+        args = [sys.executable, '-m', 'sonar_guard.ros.node', '--ros-args',
+                '--params-file', str(params_file)]
+        for key, value in (extra or {}).items():
+            text = str(value).lower() if isinstance(value, bool) else str(value)
+            args += ['-p', f'{key}:={text}']
+        self.log_path = log_path or Path(os.devnull)
+        self._log = open(self.log_path, 'w', encoding='utf-8')  # noqa: SIM115
+        self._result: tuple[int, float] | None = None
+        self.proc = subprocess.Popen(args, stdout=self._log, stderr=subprocess.STDOUT,
+                                     env=isolate_ros_environment(), cwd=REPO, text=True)
+
+    def output(self) -> str:
+        """Return what the node printed so far."""
+        if not self._log.closed:
+            self._log.flush()
+        try:
+            return self.log_path.read_text(encoding='utf-8')
+        except OSError:
+            return ''
+
+    def interrupt(self, timeout_s: float = 10.0) -> tuple[int, float]:
+        """Send SIGINT; return (exit code, seconds it took to exit)."""
+        if self._result is not None:
+            return self._result
+        start = time.monotonic()
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGINT)
+        try:
+            code = self.proc.wait(timeout_s)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            code = self.proc.wait(5)
+        self._log.close()
+        self._result = (code, time.monotonic() - start)
+        return self._result
+
+
+class Rig:
+    """Test-side publishers and subscribers, and a clock-driven feeding loop."""
+
+    def __init__(self, node: Node, config: Config) -> None:
+        self.node = node
+        self.config = config
+        sensors = {s.name: s.topic for s in config.sensors}
+        self.meta = {s.name: (s.field_of_view_rad, s.min_range_m, s.max_range_m)
+                     for s in config.sensors}
+        self.range_pubs = {name: node.create_publisher(Range, topic, 10)
+                           for name, topic in sensors.items()}
+        self.odom_pub = node.create_publisher(Odometry, config.odom_topic, 10)
+        self.cmd_pub = node.create_publisher(Twist, 'cmd_vel_request', 10)
+        self.limits: list[tuple[float, float]] = []  # (monotonic receive time, value)
+        self.diagnostics: list[DiagnosticArray] = []
+        self.gated: list[Twist] = []
+        self._subs = [
+            node.create_subscription(Float64, 'allowed_speed', self._on_limit, LIMIT_QOS),
+            node.create_subscription(DiagnosticArray, '/diagnostics', self.diagnostics.append,
+                                     10),
+            node.create_subscription(Twist, 'cmd_vel_limited', self.gated.append, 10),
+        ]
+        self.ranges: dict[str, float] = {name: math.inf for name in sensors}
+        self.silent: set[str] = set()
+        self.vx = 0.0
+        self.last_published: dict[str, float] = {}  # monotonic time of each sensor's last Range
+
+    def _on_limit(self, msg: Float64) -> None:
+        self.limits.append((time.monotonic(), msg.data))
+
+    @property
+    def limit(self) -> float:
+        """Latest allowed_speed received (NaN before the first)."""
+        return self.limits[-1][1] if self.limits else math.nan
+
+    def now_msg(self):  # noqa: ANN201 - builtin_interfaces/Time
+        return self.node.get_clock().now().to_msg()
+
+    def publish_readings(self) -> None:
+        """Publish one Range per non-silent sensor, stamped now."""
+        stamp = self.now_msg()
+        for name, pub in self.range_pubs.items():
+            if name in self.silent:
+                continue
+            msg = Range()
+            msg.header.stamp = stamp
+            msg.header.frame_id = self.config.sensor(name).frame_id or name
+            msg.radiation_type = Range.ULTRASOUND
+            fov, rmin, rmax = self.meta[name]
+            msg.field_of_view, msg.min_range, msg.max_range = fov, rmin, rmax
+            msg.range = float(self.ranges[name])
+            pub.publish(msg)
+            self.last_published[name] = time.monotonic()
+
+    def publish_odometry(self) -> None:
+        """Publish odometry with body speed vx, stamped now."""
+        msg = Odometry()
+        msg.header.stamp = self.now_msg()
+        msg.header.frame_id = 'odom'
+        msg.child_frame_id = 'base_link'
+        msg.twist.twist.linear.x = float(self.vx)
+        self.odom_pub.publish(msg)
+
+    def run_until(self, condition: Callable[[], bool], timeout_s: float = 20.0,
+                  reading_period_s: float = 0.05, odom_period_s: float = 0.02,
+                  step: Callable[[float], None] | None = None) -> float:
+        """Feed readings and odometry until ``condition()``; return the seconds it took.
+
+        ``step(t)`` may change ranges, speed or silence at elapsed time t. Raises
+        AssertionError on timeout.
+        """
+        start = time.monotonic()
+        next_reading = next_odom = start
+        while True:
+            now = time.monotonic()
+            elapsed = now - start
+            if step is not None:
+                step(elapsed)
+            if now >= next_odom:
+                self.publish_odometry()
+                next_odom += odom_period_s
+            if now >= next_reading:
+                self.publish_readings()
+                next_reading += reading_period_s
+            rclpy.spin_once(self.node, timeout_sec=0.002)
+            if condition():
+                return elapsed
+            if elapsed > timeout_s:
+                raise AssertionError(f'condition not met within {timeout_s} s; '
+                                     f'last limit {self.limit}')
+
+    def send_command(self, vx: float, wz: float = 0.0) -> None:
+        """Publish one cmd_vel_request."""
+        msg = Twist()
+        msg.linear.x, msg.angular.z = float(vx), float(wz)
+        self.cmd_pub.publish(msg)
