@@ -29,6 +29,7 @@ from geometry_msgs.msg import Twist  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
 from rclpy.node import Node  # noqa: E402
 from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy  # noqa: E402
+from rosgraph_msgs.msg import Clock  # noqa: E402
 from sensor_msgs.msg import Range  # noqa: E402
 from std_msgs.msg import Float64  # noqa: E402
 
@@ -116,6 +117,8 @@ class Rig:
         self.ranges: dict[str, float] = {name: math.inf for name in sensors}
         self.silent: set[str] = set()
         self.vx = 0.0
+        self.sim_offset_s: float | None = None  # set: publish /clock at wall time + offset
+        self.clock_pub = node.create_publisher(Clock, '/clock', 10)
         self.last_published: dict[str, float] = {}  # monotonic time of each sensor's last Range
 
     def _on_limit(self, msg: Float64) -> None:
@@ -127,7 +130,18 @@ class Rig:
         return self.limits[-1][1] if self.limits else math.nan
 
     def now_msg(self):  # noqa: ANN201 - builtin_interfaces/Time
-        return self.node.get_clock().now().to_msg()
+        """The stamp for outgoing messages: wall time, or simulated time when a clock runs."""
+        if self.sim_offset_s is None:
+            return self.node.get_clock().now().to_msg()
+        t = time.time() + self.sim_offset_s
+        msg = Clock().clock
+        msg.sec, msg.nanosec = int(t), int((t - int(t)) * 1e9)
+        return msg
+
+    def publish_clock(self) -> None:
+        """Publish /clock when simulating time."""
+        if self.sim_offset_s is not None:
+            self.clock_pub.publish(Clock(clock=self.now_msg()))
 
     def publish_readings(self) -> None:
         """Publish one Range per non-silent sensor, stamped now."""
@@ -170,6 +184,7 @@ class Rig:
             if step is not None:
                 step(elapsed)
             if now >= next_odom:
+                self.publish_clock()
                 self.publish_odometry()
                 next_odom += odom_period_s
             if now >= next_reading:

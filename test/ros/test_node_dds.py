@@ -45,11 +45,13 @@ def started(test_node, tmp_path):
     """Start the node with the shipped parameters (command gate on); stop it after the test."""
     procs: list[NodeProcess] = []
 
-    def start(**extra):
+    def start(_before_wait=None, **extra):
         proc = NodeProcess(DEFAULT_PARAMS, {'gate_commands': True, **extra},
                            log_path=tmp_path / f'node{len(procs)}.log')
         procs.append(proc)
         rig = Rig(test_node, CONFIG)
+        if _before_wait is not None:
+            _before_wait(rig)
         try:
             # the node publishes allowed_speed at 20 Hz from the start: wait for the first one
             rig.run_until(lambda: rig.limits, timeout_s=30.0)
@@ -204,6 +206,20 @@ def test_runtime_parameter_changes_apply_at_once_or_are_rejected_with_a_reason(s
     assert not restart.successful and 'restart' in restart.reason
     rig.run_until(lambda: len(rig.limits) > 10 and rig.limit == pytest.approx(0.4),
                   timeout_s=5.0)
+
+
+def test_sim_time_drives_the_node_and_a_backward_jump_resets_once(started):
+    """use_sim_time: the node runs on /clock; the clock going back resets and logs once."""
+    # a simulated clock 1000 s behind wall time, published by the rig before the node waits
+    proc, rig = started(use_sim_time=True,
+                        _before_wait=lambda r: setattr(r, 'sim_offset_s', -1000.0))
+    rig.vx = 0.05
+    rig.run_until(lambda: rig.limit > 0.3, timeout_s=30.0)
+    rig.sim_offset_s = -1030.0  # thirty seconds back, as a looping bag replay does
+    rig.run_until(lambda: 'jumped backwards' in proc.output(), timeout_s=10.0)
+    mark = len(rig.limits)
+    rig.run_until(lambda: len(rig.limits) > mark + 40 and rig.limit > 0.3, timeout_s=30.0)
+    assert proc.output().count('jumped backwards') == 1
 
 
 def test_sigint_exits_cleanly_within_two_seconds(started):
