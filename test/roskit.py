@@ -28,7 +28,13 @@ from diagnostic_msgs.msg import DiagnosticArray  # noqa: E402
 from geometry_msgs.msg import Twist  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
 from rclpy.node import Node  # noqa: E402
-from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy  # noqa: E402
+from rclpy.qos import (  # noqa: E402
+    DurabilityPolicy,
+    HistoryPolicy,
+    QoSProfile,
+    ReliabilityPolicy,
+    qos_profile_sensor_data,
+)
 from rosgraph_msgs.msg import Clock  # noqa: E402
 from sensor_msgs.msg import Range  # noqa: E402
 from std_msgs.msg import Float64  # noqa: E402
@@ -95,14 +101,16 @@ class NodeProcess:
 class Rig:
     """Test-side publishers and subscribers, and a clock-driven feeding loop."""
 
-    def __init__(self, node: Node, config: Config) -> None:
+    def __init__(self, node: Node, config: Config, best_effort: tuple[str, ...] = ()) -> None:
         self.node = node
         self.config = config
         sensors = {s.name: s.topic for s in config.sensors}
         self.meta = {s.name: (s.field_of_view_rad, s.min_range_m, s.max_range_m)
                      for s in config.sensors}
-        self.range_pubs = {name: node.create_publisher(Range, topic, 10)
-                           for name, topic in sensors.items()}
+        # sensor drivers publish either way; the node's sensor-data QoS must take both
+        self.range_pubs = {name: node.create_publisher(
+            Range, topic, qos_profile_sensor_data if name in best_effort else 10)
+            for name, topic in sensors.items()}
         self.odom_pub = node.create_publisher(Odometry, config.odom_topic, 10)
         self.cmd_pub = node.create_publisher(Twist, 'cmd_vel_request', 10)
         self.limits: list[tuple[float, float]] = []  # (monotonic receive time, value)

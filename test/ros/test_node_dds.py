@@ -45,11 +45,11 @@ def started(test_node, tmp_path):
     """Start the node with the shipped parameters (command gate on); stop it after the test."""
     procs: list[NodeProcess] = []
 
-    def start(_before_wait=None, **extra):
+    def start(_before_wait=None, _best_effort=(), **extra):
         proc = NodeProcess(DEFAULT_PARAMS, {'gate_commands': True, **extra},
                            log_path=tmp_path / f'node{len(procs)}.log')
         procs.append(proc)
-        rig = Rig(test_node, CONFIG)
+        rig = Rig(test_node, CONFIG, best_effort=_best_effort)
         if _before_wait is not None:
             _before_wait(rig)
         try:
@@ -97,8 +97,11 @@ def test_clear_path_gives_max_speed(started):
 
 
 def test_obstacle_ahead_gives_the_core_limit(started):
-    """An obstacle 1.0 m ahead: the published limit is the core's for the same inputs."""
-    _, rig = started()
+    """An obstacle 1.0 m ahead: the published limit is the core's for the same inputs.
+
+    The obstacle's sensor publishes best effort, the others reliable: both must arrive.
+    """
+    _, rig = started(_best_effort=(FRONT,))
     rig.vx = 0.05
     rig.ranges[FRONT] = 1.0
     # the limit rises slowly from 0 to its target: wait until it settles
