@@ -23,7 +23,7 @@ demo: $(STAMP)
 	$(BIN)/sonar-guard budget
 
 lint: $(STAMP)
-	$(BIN)/python -m ruff check sonar_guard test
+	$(BIN)/python -m ruff check sonar_guard test launch setup.py
 
 clean:
 	rm -rf $(VENV) build install log *.egg-info .pytest_cache .hypothesis

@@ -24,22 +24,22 @@ DEFAULT_PARAMS = REPO / 'config' / 'sonar_guard.yaml'
 
 rclpy = pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
 
-from diagnostic_msgs.msg import DiagnosticArray  # noqa: E402
-from geometry_msgs.msg import Twist  # noqa: E402
-from nav_msgs.msg import Odometry  # noqa: E402
-from rclpy.node import Node  # noqa: E402
-from rclpy.qos import (  # noqa: E402
+from diagnostic_msgs.msg import DiagnosticArray
+from geometry_msgs.msg import Twist
+from nav_msgs.msg import Odometry
+from rclpy.node import Node
+from rclpy.qos import (
     DurabilityPolicy,
     HistoryPolicy,
     QoSProfile,
     ReliabilityPolicy,
     qos_profile_sensor_data,
 )
-from rosgraph_msgs.msg import Clock  # noqa: E402
-from sensor_msgs.msg import Range  # noqa: E402
-from std_msgs.msg import Float64  # noqa: E402
+from rosgraph_msgs.msg import Clock
+from sensor_msgs.msg import Range
+from std_msgs.msg import Float64
 
-from sonar_guard.core.config import Config  # noqa: E402
+from sonar_guard.core.config import Config
 
 LIMIT_QOS = QoSProfile(depth=1, history=HistoryPolicy.KEEP_LAST,
                        reliability=ReliabilityPolicy.RELIABLE,
@@ -67,7 +67,7 @@ class NodeProcess:
             text = str(value).lower() if isinstance(value, bool) else str(value)
             args += ['-p', f'{key}:={text}']
         self.log_path = log_path or Path(os.devnull)
-        self._log = open(self.log_path, 'w', encoding='utf-8')  # noqa: SIM115
+        self._log = open(self.log_path, 'w', encoding='utf-8')
         self._result: tuple[int, float] | None = None
         self.proc = subprocess.Popen(args, stdout=self._log, stderr=subprocess.STDOUT,
                                      env=isolate_ros_environment(), cwd=REPO, text=True)
@@ -137,7 +137,7 @@ class Rig:
         """Latest allowed_speed received (NaN before the first)."""
         return self.limits[-1][1] if self.limits else math.nan
 
-    def now_msg(self):  # noqa: ANN201 - builtin_interfaces/Time
+    def now_msg(self):
         """The stamp for outgoing messages: wall time, or simulated time when a clock runs."""
         if self.sim_offset_s is None:
             return self.node.get_clock().now().to_msg()

@@ -13,7 +13,7 @@ import pytest
 from testkit import BASE_PARAMS
 import yaml
 
-from sonar_guard.cli import main
+from sonar_guard.cli import load_config_file, main
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -86,9 +86,9 @@ def test_budget_headings_list_covering_sensors_and_safe_speeds(capsys):
     headings = {h['heading']: h for h in out['headings']}
     assert set(headings) == {'forward', 'reverse'}
     assert headings['forward']['sensors'] and headings['reverse']['sensors']
-    params = yaml.safe_load((REPO / 'config' / 'sonar_guard.yaml').read_text())
-    p = params['sonar_guard']['ros__parameters']
-    a, margin = p['robot']['decel'], p['limits']['margin']
+    config = load_config_file(None)
+    a, margin = config.robot.decel_mps2, config.limits.margin_m
+    cap = config.limits.max_speed_mps
     for h in headings.values():
         latency = h['latency_s']
         for row in h['speeds']:
@@ -96,8 +96,7 @@ def test_budget_headings_list_covering_sensors_and_safe_speeds(capsys):
             # reference.md sec. 5 closed form
             expected = -a * latency + math.sqrt((a * latency) ** 2 + 2 * a * d)
             assert row['max_safe_speed_mps'] == pytest.approx(expected, rel=1e-9)
-            assert row['allowed_mps'] == pytest.approx(min(expected, p['limits']['max_speed']),
-                                                       rel=1e-9)
+            assert row['allowed_mps'] == pytest.approx(min(expected, cap), rel=1e-9)
 
 
 def test_budget_table_is_readable(capsys):

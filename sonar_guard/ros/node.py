@@ -256,6 +256,10 @@ def main(args: Sequence[str] | None = None) -> int:
         rclpy.spin(node)
     except (KeyboardInterrupt, ExternalShutdownException):
         pass
+    except RuntimeError:
+        if rclpy.ok():
+            raise
+        # rclpy may fail to take a message while SIGINT is shutting the context down
     finally:
         if node is not None:
             node.destroy_node()

@@ -12,15 +12,15 @@ import pytest
 
 pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
 
-from diagnostic_msgs.msg import DiagnosticStatus  # noqa: E402
-from rcl_interfaces.msg import Parameter as ParameterMsg  # noqa: E402
-from rcl_interfaces.msg import ParameterType, ParameterValue  # noqa: E402
-from rcl_interfaces.srv import SetParameters  # noqa: E402
-from roskit import DEFAULT_PARAMS, NodeProcess, Rig, isolate_ros_environment, rclpy  # noqa: E402
+from diagnostic_msgs.msg import DiagnosticStatus
+from rcl_interfaces.msg import Parameter as ParameterMsg
+from rcl_interfaces.msg import ParameterType, ParameterValue
+from rcl_interfaces.srv import SetParameters
+from roskit import DEFAULT_PARAMS, NodeProcess, Rig, isolate_ros_environment, rclpy
 
-from sonar_guard.cli import load_config_file  # noqa: E402
-from sonar_guard.core.monitor import Monitor, OdometrySample  # noqa: E402
-from sonar_guard.core.readings import RangeReading  # noqa: E402
+from sonar_guard.cli import load_config_file
+from sonar_guard.core.monitor import Monitor, OdometrySample
+from sonar_guard.core.readings import RangeReading
 
 pytestmark = pytest.mark.ros
 

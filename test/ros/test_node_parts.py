@@ -7,14 +7,14 @@ import pytest
 
 pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
 
-from geometry_msgs.msg import Twist  # noqa: E402
-from rcl_interfaces.msg import ParameterType  # noqa: E402
+from geometry_msgs.msg import Twist
+from rcl_interfaces.msg import ParameterType
 
-from sonar_guard.core.config import global_specs, sensor_specs  # noqa: E402
-from sonar_guard.core.readings import Verdict  # noqa: E402
-from sonar_guard.ros.convert import seconds_to_stamp_parts, stamp_to_s  # noqa: E402
-from sonar_guard.ros.node import TransitionLog, gate_command  # noqa: E402
-from sonar_guard.ros.params import descriptor_of  # noqa: E402
+from sonar_guard.core.config import global_specs, sensor_specs
+from sonar_guard.core.readings import Verdict
+from sonar_guard.ros.convert import seconds_to_stamp_parts, stamp_to_s
+from sonar_guard.ros.node import TransitionLog, gate_command
+from sonar_guard.ros.params import descriptor_of
 
 
 def twist(vx=0.0, vy=0.0, wz=0.0):
