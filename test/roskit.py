@@ -125,6 +125,7 @@ class Rig:
         self.ranges: dict[str, float] = {name: math.inf for name in sensors}
         self.silent: set[str] = set()
         self.vx = 0.0
+        self.odometry_silent = False
         self.sim_offset_s: float | None = None  # set: publish /clock at wall time + offset
         self.clock_pub = node.create_publisher(Clock, '/clock', 10)
         self.last_published: dict[str, float] = {}  # monotonic time of each sensor's last Range
@@ -168,7 +169,9 @@ class Rig:
             self.last_published[name] = time.monotonic()
 
     def publish_odometry(self) -> None:
-        """Publish odometry with body speed vx, stamped now."""
+        """Publish odometry with body speed vx, stamped now (unless odometry is silenced)."""
+        if self.odometry_silent:
+            return
         msg = Odometry()
         msg.header.stamp = self.now_msg()
         msg.header.frame_id = 'odom'

@@ -139,6 +139,20 @@ def test_silent_sensor_drops_to_fallback_within_stale_after(started):
         DiagnosticStatus.STALE[0], DiagnosticStatus.ERROR[0]), timeout_s=5.0)
 
 
+def test_stale_odometry_drops_to_fallback(started):
+    """Without odometry the motion is unknown: fallback_speed within odom_stale_after."""
+    _, rig = started()
+    rig.vx = 0.05
+    rig.run_until(lambda: rig.limit > 0.5, timeout_s=30.0)
+    rig.odometry_silent = True
+    took = rig.run_until(lambda: rig.limit == CONFIG.limits.fallback_speed_mps, timeout_s=10.0)
+    print(f'\nodometry silent: fallback after {took * 1e3:.0f} ms '
+          f'(odom_stale_after {CONFIG.limits.odom_stale_after_s * 1e3:.0f} ms)')
+    assert took <= CONFIG.limits.odom_stale_after_s + 0.2
+    rig.odometry_silent = False
+    rig.run_until(lambda: rig.limit > 0.3, timeout_s=30.0)  # recovers when odometry returns
+
+
 def test_obstacle_lost_into_the_blind_zone_keeps_the_limit_low(started):
     """Closing in, then inside the blind range, then no echo: the limit stays at 0."""
     _, rig = started()
