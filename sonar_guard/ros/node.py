@@ -35,7 +35,7 @@ from visualization_msgs.msg import MarkerArray
 
 from sonar_guard import SAFETY_CAUTION
 from sonar_guard.core.config import Config
-from sonar_guard.core.monitor import Decision, Monitor
+from sonar_guard.core.monitor import Decision, Event, Monitor
 from sonar_guard.core.readings import Verdict
 from sonar_guard.errors import ConfigError
 from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
@@ -43,7 +43,7 @@ from sonar_guard.ros.diagnostics import build_diagnostics, levels_of
 from sonar_guard.ros.markers import build_markers
 from sonar_guard.ros.params import ParameterBridge
 
-__all__ = ['LIMIT_QOS', 'SonarGuardNode', 'TransitionLog', 'gate_command', 'main']
+__all__ = ['LIMIT_QOS', 'FindingLog', 'SonarGuardNode', 'TransitionLog', 'gate_command', 'main']
 
 NODE_NAME = 'sonar_guard'
 LIMIT_QOS = QoSProfile(depth=1, history=HistoryPolicy.KEEP_LAST,
@@ -79,6 +79,29 @@ class TransitionLog:
         return f'{sensor}: {was} -> {verdict.value}: {reason}{extra}'
 
 
+class FindingLog:
+    """Log closed findings, at most ``per_second`` lines a second; count what is held back."""
+
+    def __init__(self, per_second: float = 10.0) -> None:
+        self.per_second = per_second
+        self._window_start = -math.inf
+        self._in_window = 0
+        self._held = 0
+
+    def note(self, event: Event, now_s: float) -> str | None:
+        """Return the log line for a closed finding, or None when throttled."""
+        if now_s - self._window_start >= 1.0:
+            self._window_start, self._in_window = now_s, 0
+        if self._in_window >= self.per_second:
+            self._held += 1
+            return None
+        self._in_window += 1
+        held, self._held = self._held, 0
+        extra = f' ({held} findings not logged before this one)' if held else ''
+        return (f'finding: {event.kind} {event.sensor or "robot"} '
+                f'{event.t_start:.3f}..{event.t_end:.3f} s: {event.detail}{extra}')
+
+
 def gate_command(cmd: Twist, limit_mps: float, fallback: bool) -> Twist:
     """Scale a command so its linear speed stays within the limit; zero when sensing failed."""
     out = Twist()
@@ -106,6 +129,7 @@ class SonarGuardNode(Node):
             self.get_logger().warning(warning)
         self.monitor = Monitor(self.config)
         self._transitions = TransitionLog()
+        self._findings = FindingLog()
         self._published = math.nan
         self._levels: dict[str, int] = {}
         self._resets_seen = 0
@@ -191,6 +215,10 @@ class SonarGuardNode(Node):
             self.get_logger().warning('ROS time jumped backwards: histories reset')
         if publish_drop and decision.limit_mps < self._published:
             self._publish_limit(decision.limit_mps)
+        for event in self.monitor.pop_events():  # popped every time: memory stays flat
+            line = self._findings.note(event, time.monotonic())
+            if line:
+                self.get_logger().warning(line)
         return decision
 
     def _publish_limit(self, limit: float) -> None:

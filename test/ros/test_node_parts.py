@@ -11,9 +11,10 @@ from geometry_msgs.msg import Twist
 from rcl_interfaces.msg import ParameterType
 
 from sonar_guard.core.config import global_specs, sensor_specs
+from sonar_guard.core.monitor import Event
 from sonar_guard.core.readings import Verdict
 from sonar_guard.ros.convert import seconds_to_stamp_parts, stamp_to_s
-from sonar_guard.ros.node import TransitionLog, gate_command
+from sonar_guard.ros.node import FindingLog, TransitionLog, gate_command
 from sonar_guard.ros.params import descriptor_of
 
 
@@ -84,6 +85,25 @@ class TestTransitionLog:
         log = TransitionLog(period_s=1.0)
         log.note('a', Verdict.OK, 'x', 0.0)
         assert log.note('b', Verdict.STUCK, 'z', 0.1) is not None
+
+
+class TestFindingLog:
+    """Closed findings reach the log without flooding it."""
+
+    def test_a_finding_is_logged_with_kind_sensor_times_and_detail(self):
+        """One line carries everything the offline report would show."""
+        line = FindingLog().note(Event('jump', 'a', 1.0, 1.0, '2.0 -> 0.5 m'), 0.0)
+        assert line == 'finding: jump a 1.000..1.000 s: 2.0 -> 0.5 m'
+
+    def test_more_than_the_rate_is_held_and_counted(self):
+        """Beyond per_second lines a second, findings are counted and the count is said."""
+        log = FindingLog(per_second=3)
+        event = Event('overspeed', None, 1.0, 2.0, 'x')
+        lines = [log.note(event, 0.01 * i) for i in range(10)]
+        assert sum(line is not None for line in lines) == 3
+        later = log.note(event, 1.5)
+        assert later is not None and '(7 findings not logged before this one)' in later
+        assert 'robot' in later
 
 
 class TestDescriptors:
