@@ -26,6 +26,7 @@ setup(
         'transforms3d>=0.4',
         'PyYAML>=5.4',
         'rich>=12',
+        'matplotlib>=3.5',
     ],
     extras_require={
         'test': [

@@ -14,12 +14,17 @@ import sys
 from sonar_guard import SAFETY_CAUTION, __version__
 from sonar_guard.budget import budget_of
 from sonar_guard.core.config import Config, build_config, parse_params_yaml
+from sonar_guard.core.monitor import EVENT_KINDS
 from sonar_guard.errors import ConfigError, SonarGuardError
 from sonar_guard.paths import default_params_path
 
 __all__ = ['load_config_file', 'main']
 
 EXIT_OK, EXIT_FINDINGS, EXIT_UNUSABLE = 0, 1, 2
+
+
+class UsageError(SonarGuardError):
+    """A command-line argument is wrong; argparse reports it with the usage line."""
 
 
 def load_config_file(path: Path | str | None) -> Config:
@@ -82,6 +87,91 @@ def cmd_budget(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_check(args: argparse.Namespace) -> int:
+    """Replay recordings through the engine and report what they show."""
+    from sonar_guard.offline.atomic import write_text_atomic
+    from sonar_guard.offline.check import check_many, parse_kinds, print_summary, report_json
+
+    try:
+        fail_on = parse_kinds(args.fail_on)
+    except ValueError as err:
+        raise UsageError(f'--fail-on: {err}') from None
+    if args.jobs < 1:
+        raise UsageError(f'--jobs must be at least 1: {args.jobs}')
+    config, source = None, ''
+    if args.params:
+        config = load_config_file(args.params)
+        source = f'parameters from {args.params}'
+        for warning in config.warnings:
+            print(f'warning: {warning}', file=sys.stderr)
+    run = _with_progress(
+        lambda progress: check_many(args.bags, config, config_source=source, jobs=args.jobs,
+                                    fail_on=fail_on, progress=progress),
+        enabled=not args.quiet and sys.stderr.isatty(), total=len(args.bags))
+    if args.json:
+        text = json.dumps(report_json(run), indent=2, allow_nan=False) + '\n'
+        if args.json == '-':
+            sys.stdout.write(text)
+        else:
+            write_text_atomic(args.json, text)
+    if args.html:
+        from sonar_guard.offline.html import render_html
+        write_text_atomic(args.html, render_html(run.results))
+    if not args.quiet and args.json != '-':
+        print_summary(run)
+    for u in run.unusable:
+        print(f'sonar-guard: error: {u.reason}', file=sys.stderr)
+    for r in run.results:
+        if r.error:
+            print(f'sonar-guard: error: {r.error} (reported what was readable)',
+                  file=sys.stderr)
+    return run.exit_code
+
+
+def cmd_tune(args: argparse.Namespace) -> int:
+    """Propose parameter values from recordings, each with its evidence."""
+    from sonar_guard.offline.atomic import write_text_atomic
+    from sonar_guard.offline.tune import gather, propose, render_params
+
+    config = load_config_file(args.params)
+    evidence = gather(args.bags, config, cmd_topic=args.cmd_topic)
+    proposals = propose(config, evidence)
+    text = render_params(config, proposals, sources=[str(b) for b in args.bags])
+    build_config(parse_params_yaml(text, source='tune output'), source='tune output')
+    if args.output:
+        write_text_atomic(args.output, text)
+    else:
+        sys.stdout.write(text)
+    report = sys.stderr if not args.output else sys.stdout
+    for note in evidence.notes:
+        print(f'note: {note}', file=report)
+    if not proposals:
+        print('no proposals: the recordings agree with the parameters', file=report)
+    for p in proposals:
+        print(('LOOSER (kept, review): ' if p.looser else 'proposed: ') + p.describe(),
+              file=report)
+    return EXIT_OK
+
+
+def _with_progress(work, *, enabled: bool, total: int):  # type: ignore[no-untyped-def]
+    """Run ``work(progress)`` with a progress bar on stderr when ``enabled``."""
+    if not enabled:
+        return work(None)
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    columns = (TextColumn('{task.description}'), BarColumn(),
+               TextColumn('{task.percentage:>3.0f}%'), TimeRemainingColumn())
+    with Progress(*columns, console=Console(stderr=True), transient=True) as bar:
+        tasks: dict[str, int] = {}
+
+        def progress(path: str, fraction: float) -> None:
+            if path not in tasks:
+                tasks[path] = bar.add_task(Path(path).name, total=1.0)
+            bar.update(tasks[path], completed=fraction)
+        return work(progress)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """Return the argument parser of ``sonar-guard``."""
     parser = argparse.ArgumentParser(
@@ -105,6 +195,43 @@ def build_parser() -> argparse.ArgumentParser:
                              'config/sonar_guard.yaml)')
     budget.add_argument('--json', action='store_true', help='print JSON instead of tables')
     budget.set_defaults(func=cmd_budget)
+
+    check = sub.add_parser(
+        'check', help='replay recorded bags through the engine and report findings',
+        description='Replay ROS 2 bags (a directory with metadata.yaml, or a .mcap file) or '
+                    'ROS 1 .bag files through the same engine as the live node, driven by bag '
+                    'time. Exit 0: no findings; 1: findings; 2: unusable input (one line on '
+                    'stderr; a recording that breaks off partway is still reported).',
+        epilog='Safety: ' + SAFETY_CAUTION)
+    check.add_argument('bags', nargs='+', metavar='BAG', help='recordings to check')
+    check.add_argument('--params', metavar='FILE',
+                       help='ROS 2 parameter file; without it, Range topics are found by type '
+                            'and defaults are used (the report says so)')
+    check.add_argument('--json', metavar='PATH|-', help='write the JSON report ("-": stdout)')
+    check.add_argument('--html', metavar='PATH', help='write a self-contained HTML report')
+    check.add_argument('--fail-on', metavar='KINDS',
+                       help='comma-separated event kinds that count as findings for the exit '
+                            f'code (default all: {", ".join(EVENT_KINDS)}; or none)')
+    check.add_argument('--jobs', type=int, default=1, metavar='N',
+                       help='check N recordings in parallel processes (default 1)')
+    check.add_argument('--quiet', action='store_true', help='no terminal summary')
+    check.set_defaults(func=cmd_check)
+
+    tune = sub.add_parser(
+        'tune', help='propose parameter values from recordings, with the evidence',
+        description='Propose min_range, max_range, slot timing, stale_after, decel and '
+                    'reaction_time from what recordings show. Values less conservative than '
+                    'the current ones are never applied: the file keeps the current value and '
+                    'shows the looser one in a comment to review.',
+        epilog='Safety: ' + SAFETY_CAUTION)
+    tune.add_argument('bags', nargs='+', metavar='BAG', help='recordings to learn from')
+    tune.add_argument('--params', metavar='FILE',
+                      help='current parameter file (default: the installed one)')
+    tune.add_argument('-o', '--output', metavar='FILE',
+                      help='write the proposed parameter file here (default: stdout)')
+    tune.add_argument('--cmd-topic', default='cmd_vel', metavar='TOPIC',
+                      help='velocity commands for the reaction time (default cmd_vel)')
+    tune.set_defaults(func=cmd_tune)
     return parser
 
 
@@ -117,6 +244,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_UNUSABLE
     try:
         return int(args.func(args))
+    except UsageError as err:
+        parser.error(str(err))  # exits 2 with the usage line
     except SonarGuardError as err:
         if args.debug:
             raise

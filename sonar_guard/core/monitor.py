@@ -62,7 +62,7 @@ STILL_SPEED_MPS = 0.02  # below this the direction of travel is kept, not re-rea
 CLOCK_JUMP_S = 0.5  # time going back more than this resets every history
 HOLONOMIC_HEADINGS = 72  # 5 degree steps
 _STRETCH_KINDS = {Verdict.BLIND: 'blind', Verdict.INVALID: 'invalid', Verdict.STALE: 'stale',
-                  Verdict.LATE: 'late', Verdict.STUCK: 'stuck'}
+                  Verdict.STUCK: 'stuck'}  # 'late' follows ReadingCheck.late, any verdict
 
 
 @dataclass(frozen=True, slots=True)
@@ -287,6 +287,11 @@ class Monitor:
         if kind is not None:
             self._stretch(name, kind, t, check.reason)
             keep.add(kind)
+        if check.late:
+            self._stretch(name, 'late', t,
+                          f'arrived {reading.arrival_s - t:.3f} s after its stamp '
+                          f'> late_after {st.config.late_after_s:g} s')
+            keep.add('late')
         if v is Verdict.JUMP:
             self._closed.append(Event('jump', name, t, t, check.reason))
         self._close_other_stretches(name, keep=tuple(keep))

@@ -93,6 +93,7 @@ class ReadingCheck:
     range_m: float
     verdict: Verdict
     reason: str
+    late: bool = False  # arrived later than late_after, whatever the verdict
 
     def describe(self) -> str:
         """Return a one-line human description."""
@@ -156,7 +157,10 @@ class ReadingValidator:
     def check(self, reading: RangeReading, pose: Motion | None = None) -> ReadingCheck:
         """Return the verdict on ``reading``; ``pose`` is the robot pose at its stamp."""
         verdict, reason = self._judge(reading, pose)
-        return ReadingCheck(reading.sensor, reading.stamp_s, reading.range_m, verdict, reason)
+        late = (verdict not in (Verdict.INVALID, Verdict.STALE)
+                and reading.arrival_s - reading.stamp_s > self.sensor.late_after_s)
+        return ReadingCheck(reading.sensor, reading.stamp_s, reading.range_m, verdict, reason,
+                            late)
 
     def _judge(self, rd: RangeReading, pose: Motion | None) -> tuple[Verdict, str]:
         s = self.sensor

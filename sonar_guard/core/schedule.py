@@ -179,7 +179,13 @@ class ClashDetector:
         self._last_fire.clear()
 
     def check(self, name: str, stamp_s: float, range_m: float) -> tuple[str, float] | None:
-        """Record a reading; return (other sensor, gap s) when it clashes with one, else None."""
+        """Record a reading; return (other sensor, gap s) when it clashes with one, else None.
+
+        Readings whose flight time is unknown (NaN, -inf, negative) neither raise nor count
+        toward a clash: their firing time cannot be estimated.
+        """
+        if math.isnan(range_m) or range_m < 0:
+            return None
         me = self._sensors[name]
         fire = estimated_firing_time(stamp_s, range_m, me)
         self._last_fire[name] = fire

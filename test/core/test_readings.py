@@ -215,3 +215,16 @@ def test_reason_describes_the_reading():
     """describe() gives a readable one-line summary."""
     check = validator().check(reading(-math.inf, stamp=2.5))
     assert check.describe() == 'ahead @ 2.500 s: blind (-inf (REP 117: too close to quantify))'
+
+
+def test_late_flag_applies_to_every_usable_verdict():
+    """A no-echo or blind reading that arrives late keeps its verdict and is flagged late."""
+    v = validator({'sonar.late_after': 0.1})
+    no_echo = v.check(reading(math.inf, stamp=1.0, arrival=1.2))
+    assert no_echo.verdict is Verdict.NO_ECHO and no_echo.late
+    blind = v.check(reading(-math.inf, stamp=2.0, arrival=2.2))
+    assert blind.verdict is Verdict.BLIND and blind.late
+    on_time = v.check(reading(math.inf, stamp=3.0, arrival=3.05))
+    assert not on_time.late
+    stale = v.check(reading(1.0, stamp=4.0, arrival=4.5))
+    assert stale.verdict is Verdict.STALE and not stale.late

@@ -94,21 +94,32 @@ class TestClash:
         """Fired 5 ms apart with a 23 ms echo timeout: the second hears the first."""
         config = make_config({'sonar.air_temperature': 20.0})
         clash = ClashDetector(config.sensors)
-        assert clash.check('ahead', 1.000, math.nan) is None
-        other, gap = clash.check('behind', 1.005, math.nan)
+        timeout = 2 * config.sensor('ahead').max_range_m / c_f1(20.0)
+        # both saw no echo: each fired one echo timeout before its stamp
+        assert clash.check('ahead', 1.000, math.inf) is None
+        other, gap = clash.check('behind', 1.005, math.inf)
         assert other == 'ahead' and gap == pytest.approx(0.005)
+        assert timeout > 0.005 / 0.9
 
     def test_back_to_back_slots_do_not_clash(self):
         """Firing a full echo timeout apart is the schedule working as designed."""
         config = make_config({'sonar.air_temperature': 20.0})
         timeout = 2 * config.sensor('ahead').max_range_m / c_f1(20.0)
         clash = ClashDetector(config.sensors)
-        clash.check('ahead', 1.0, math.nan)
-        assert clash.check('behind', 1.0 + timeout, math.nan) is None
+        clash.check('ahead', 1.0, math.inf)
+        assert clash.check('behind', 1.0 + timeout, math.inf) is None
+
+    def test_readings_without_a_flight_time_never_clash(self):
+        """NaN and -inf say nothing about when the pulse left (REP 117 meanings)."""
+        config = make_config({'sonar.air_temperature': 20.0})
+        clash = ClashDetector(config.sensors)
+        assert clash.check('ahead', 1.000, 1.0) is None
+        assert clash.check('behind', 1.001, -math.inf) is None
+        assert clash.check('behind', 1.002, math.nan) is None
 
     def test_sensors_sharing_a_slot_never_clash(self):
         """Sensors in one slot fire together on purpose."""
         config = make_config({'sensors.behind.slot': 0})
         clash = ClashDetector(config.sensors)
-        clash.check('ahead', 1.0, math.nan)
-        assert clash.check('behind', 1.0, math.nan) is None
+        clash.check('ahead', 1.0, math.inf)
+        assert clash.check('behind', 1.0, math.inf) is None

@@ -1,0 +1,3 @@
+"""Offline tools: read recordings, replay them through the engine, report and tune."""
+
+__all__: list[str] = []

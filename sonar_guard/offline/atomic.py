@@ -1,0 +1,47 @@
+"""Write output files whole or not at all, and only where the user said."""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+import tempfile
+
+from sonar_guard.errors import SonarGuardError
+
+__all__ = ['OutputError', 'write_text_atomic']
+
+
+class OutputError(SonarGuardError):
+    """An output file cannot be written where it was asked for."""
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def write_text_atomic(path: str | Path, text: str) -> Path:
+    """Write ``text`` to ``path`` through a temporary file in the same folder, then rename.
+
+    A reader never sees a half-written file. A symbolic link at ``path`` is refused: it
+    could send the report somewhere the user did not name.
+    """
+    target = Path(path)
+    if target.is_symlink():
+        raise OutputError(f'{target}: is a symbolic link; name the real file to write')
+    folder = target.parent if str(target.parent) else Path('.')
+    if not folder.is_dir():
+        raise OutputError(f'{target}: folder {folder} does not exist')
+    fd, tmp = tempfile.mkstemp(prefix=f'.{target.name}.', suffix='.tmp', dir=folder)
+    try:
+        with os.fdopen(fd, 'w', encoding='utf-8') as handle:
+            handle.write(text)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
+        os.replace(tmp, target)
+    except OSError as err:
+        Path(tmp).unlink(missing_ok=True)
+        raise OutputError(f'{target}: cannot write: {err.strerror or err}') from None
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return target

@@ -1,0 +1,223 @@
+"""Replay a recording through the engine, driven by bag time, exactly as the live node would.
+
+The live node passes the receive time of each message and ticks its publish timer; here the
+bag's log time (when the recorder received the message) plays the receive time, and ticks
+fall after every reading and on the ``publish_rate`` grid. Results go into a
+:class:`~sonar_guard.offline.results.BagResult` whose memory stays flat.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass
+import math
+import re
+from typing import Any
+
+from sonar_guard.core.config import Config, build_config
+from sonar_guard.core.monitor import Monitor
+from sonar_guard.errors import RecordingError
+from sonar_guard.offline.bags import ODOMETRY_TYPE, RANGE_TYPE, BagSource, TopicInfo
+from sonar_guard.offline.results import VERDICT_CODES, BagResult, SensorSummary
+from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
+
+__all__ = ['Wiring', 'Replayer', 'check_bag', 'config_from_messages', 'wire_topics']
+
+_PEEK_MESSAGES = 5000  # how far to look for a first message of each Range topic
+
+
+@dataclass(frozen=True, slots=True)
+class Wiring:
+    """Which recorded topic feeds which input of the engine."""
+
+    sensors: Mapping[str, str]  # bag topic -> sensor name
+    odometry: str | None
+
+
+def _matches(configured: str, recorded: str) -> bool:
+    if configured.startswith('/'):
+        return recorded == configured
+    return recorded == '/' + configured or recorded.endswith('/' + configured)
+
+
+def wire_topics(config: Config, topics: Mapping[str, TopicInfo]) -> tuple[Wiring, list[str]]:
+    """Match configured (relative) topics to recorded ones; return the wiring and notes.
+
+    Raises RecordingError when a configured topic carries another message type, or a
+    relative topic matches several recorded ones.
+    """
+    notes: list[str] = []
+    sensors: dict[str, str] = {}
+    for s in config.sensors:
+        found = [t for t in topics if _matches(s.topic, t)]
+        if len(found) > 1:
+            raise RecordingError(
+                f'topic {s.topic!r} of sensor {s.name!r} matches several recorded topics '
+                f'({", ".join(sorted(found))}): give the full name in the parameters')
+        if not found:
+            notes.append(f'sensor {s.name!r}: topic {s.topic!r} not in the recording '
+                         '(it counts as silent throughout)')
+            continue
+        info = topics[found[0]]
+        if info.msgtype != RANGE_TYPE:
+            raise RecordingError(f'topic {info.name} of sensor {s.name!r} carries '
+                                 f'{info.msgtype}, not {RANGE_TYPE}')
+        sensors[info.name] = s.name
+    odom = [t for t in topics if _matches(config.odom_topic, t)]
+    odometry = None
+    if len(odom) == 1 and topics[odom[0]].msgtype == ODOMETRY_TYPE:
+        odometry = odom[0]
+    elif odom:
+        raise RecordingError(f'odometry topic {config.odom_topic!r} matches '
+                             f'{", ".join(f"{t} ({topics[t].msgtype})" for t in odom)}: '
+                             f'need exactly one {ODOMETRY_TYPE}')
+    else:
+        notes.append(f'odometry topic {config.odom_topic!r} not in the recording: '
+                     'the limit falls back throughout')
+    return Wiring(sensors, odometry), notes
+
+
+def config_from_messages(firsts: Mapping[str, Any], odometry: str | None,
+                         base: Mapping[str, Any] | None = None) -> Config:
+    """Build a configuration for Range topics found by type, from their first messages.
+
+    Sensor limits (min/max range, field of view) come from the messages; everything else is
+    the schema default. Mounts are unknown: every sensor is taken as facing forward from the
+    middle of the default footprint.
+    """
+    params: dict[str, Any] = dict(base or {})
+    names: list[str] = []
+    for topic, msg in sorted(firsts.items()):
+        name = re.sub(r'[^A-Za-z0-9_]', '_', topic.strip('/')) or 'sonar'
+        if not name[0].isalpha():
+            name = 's_' + name
+        while name in names:
+            name += '_'
+        names.append(name)
+        params[f'sensors.{name}.topic'] = topic
+        params[f'sensors.{name}.min_range'] = float(msg.min_range)
+        params[f'sensors.{name}.max_range'] = float(msg.max_range)
+        params[f'sensors.{name}.field_of_view'] = float(msg.field_of_view)
+        params[f'sensors.{name}.slot'] = 0  # firing order unknown: one slot, no clash checks
+    params['sensor_names'] = names
+    if odometry:
+        params['odom_topic'] = odometry
+    return build_config(params, source='defaults from the recorded messages')
+
+
+class Replayer:
+    """Feed one recording's messages to a Monitor and collect what happens."""
+
+    def __init__(self, config: Config, wiring: Wiring, result: BagResult) -> None:
+        self.config = config
+        self.wiring = wiring
+        self.result = result
+        self.monitor = Monitor(config)
+        self._summaries = {s.name: SensorSummary(s.name, s.topic) for s in config.sensors}
+        for topic, name in wiring.sensors.items():
+            self._summaries[name].topic = topic
+        result.sensors = list(self._summaries.values())
+        self._last_stamp: dict[str, float] = {}
+        self._period = 1.0 / config.publish_rate_hz
+        self._next_tick = math.nan
+
+    def feed(self, topic: str, t_s: float, msg: Any) -> None:
+        """Process one message logged at bag time ``t_s``."""
+        res = self.result
+        if math.isnan(res.t_start):
+            res.t_start = t_s
+            self._next_tick = t_s + self._period
+        res.t_end = max(res.t_end, t_s) if not math.isnan(res.t_end) else t_s
+        res.messages += 1
+        while self._next_tick <= t_s:
+            self._tick(self._next_tick)
+            self._next_tick += self._period
+        name = self.wiring.sensors.get(topic)
+        if name is not None:
+            self._reading(name, msg, t_s)
+            self._tick(t_s)
+        elif topic == self.wiring.odometry:
+            self.monitor.on_odometry(odometry_to_sample(msg, t_s))
+
+    def _reading(self, name: str, msg: Any, t_s: float) -> None:
+        check = self.monitor.on_range(range_to_reading(name, msg, t_s))
+        summary = self._summaries[name]
+        summary.readings += 1
+        summary.counts[check.verdict.value] += 1
+        r = check.range_m
+        if math.isfinite(r) and r >= 0:
+            summary.range_min_m = min(summary.range_min_m, r)
+            summary.range_max_m = max(summary.range_max_m, r)
+        if check.verdict.value not in ('invalid', 'stale'):
+            last = self._last_stamp.get(name)
+            if last is not None and check.stamp_s > last:
+                summary.periods.add(check.stamp_s - last)
+            self._last_stamp[name] = check.stamp_s
+            summary.latencies.add(self.monitor.detection_latency_s(name))
+        summary.ranges.add(check.stamp_s, r if math.isfinite(r) else math.inf,
+                           VERDICT_CODES[check.verdict.value])
+
+    def _tick(self, t_s: float) -> None:
+        decision = self.monitor.tick(t_s)
+        self.result.limit.add(t_s, decision.limit_mps)
+        self.result.speed.add(t_s, decision.speed_mps)
+        self.result.events.extend(self.monitor.pop_events())
+
+    def finish(self) -> BagResult:
+        """Close what is still open at the end of the recording and return the result."""
+        if not math.isnan(self.result.t_end):
+            self._tick(self.result.t_end)
+        self.result.events.extend(self.monitor.finish())
+        self.result.events.sort(key=lambda e: (e.t_start, e.kind, e.sensor or ''))
+        return self.result
+
+
+def _first_messages(bag: BagSource, topics: Iterable[str]) -> dict[str, Any]:
+    wanted = set(topics)
+    firsts: dict[str, Any] = {}
+    for i, (topic, _, msg) in enumerate(bag.messages(sorted(wanted))):
+        firsts.setdefault(topic, msg)
+        if len(firsts) == len(wanted) or i >= _PEEK_MESSAGES:
+            break
+    return firsts
+
+
+def check_bag(path: str, config: Config | None, *, config_source: str = '',
+              progress: Callable[[float], None] | None = None) -> BagResult:
+    """Check one recording; raises RecordingError when it cannot be opened at all.
+
+    A recording that breaks off partway returns what was readable with ``result.error`` set.
+    ``progress`` is called with the fraction of bag time done (0..1) now and then.
+    """
+    with BagSource(path) as bag:
+        notes: list[str] = []
+        if config is None:
+            ranges = bag.topics_of_type(RANGE_TYPE)
+            if not ranges:
+                raise RecordingError(f'{path}: no {RANGE_TYPE} topics and no --params given')
+            odoms = bag.topics_of_type(ODOMETRY_TYPE)
+            config = config_from_messages(_first_messages(bag, ranges),
+                                          odoms[0] if odoms else None)
+            config_source = ('no --params: sensors found by message type, limits from their '
+                             'first messages, every other value the default; mounts unknown '
+                             '(all taken as facing forward): speed limits are indicative only')
+            if len(odoms) > 1:
+                notes.append(f'several odometry topics; using {odoms[0]}')
+        wiring, wiring_notes = wire_topics(config, bag.topics)
+        notes.extend(wiring_notes)
+        result = BagResult(path=str(path), config=config, config_source=config_source,
+                           notes=notes)
+        replayer = Replayer(config, wiring, result)
+        topics = list(wiring.sensors) + ([wiring.odometry] if wiring.odometry else [])
+        span = max(bag.end_s - bag.start_s, 1e-9)
+        next_report = 0.0
+        try:
+            for topic, t_s, msg in bag.messages(topics):
+                replayer.feed(topic, t_s, msg)
+                if progress is not None and t_s >= next_report:
+                    progress(min(1.0, (t_s - bag.start_s) / span))
+                    next_report = t_s + span / 200
+        except RecordingError as err:
+            result.error = str(err)
+        if progress is not None:
+            progress(1.0)
+        return replayer.finish()

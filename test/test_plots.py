@@ -1,0 +1,260 @@
+"""Report figures: uncovered headings, safe speed by heading, the layout PNG, recording plots."""
+from __future__ import annotations
+
+import base64
+import math
+import struct
+
+from matplotlib.colors import to_rgba
+from matplotlib.figure import Figure
+import numpy as np
+import pytest
+from testkit import make_config
+
+from sonar_guard.core.braking import max_safe_speed
+from sonar_guard.core.geometry import coverage, uniform_headings
+from sonar_guard.core.monitor import EVENT_KINDS, Event, mount_of
+from sonar_guard.offline.results import VERDICT_CODES, BagResult, SensorSummary
+from sonar_guard.plots import (
+    COLOURS,
+    EVENT_COLOURS,
+    VERDICT_COLOURS,
+    draw_layout,
+    draw_speed_polar,
+    figure_png_base64,
+    layout_figure,
+    range_figure,
+    safe_speed_by_heading,
+    save_layout_png,
+    speed_figure,
+    timing_figure,
+    uncovered_headings,
+)
+
+PNG_SIGNATURE = b'\x89PNG\r\n\x1a\n'  # PNG spec (ISO/IEC 15948) sec. 5.2
+C20 = 331.3 * math.sqrt(1 + 20.0 / 273.15)  # reference.md F1, speed of sound at 20 degC
+T0 = 1_700_000_000.0
+
+CONFIGS = {
+    'test robot': {},
+    'holonomic': {'robot.holonomic': True},
+    'rear sensor turned left': {'sensors.behind.yaw': 1.2},
+    'wide cones': {'sonar.field_of_view': 1.5},
+}
+
+
+def png_size(data: bytes) -> tuple[int, int]:
+    """Return (width, height) from the IHDR chunk (PNG spec sec. 11.2.2: first chunk)."""
+    assert data[:8] == PNG_SIGNATURE
+    assert data[12:16] == b'IHDR'
+    return struct.unpack('>II', data[16:24])
+
+
+def gids(ax) -> list[str]:
+    """Return the gid of every artist drawn in ``ax`` (patches, lines, texts, collections)."""
+    artists = [*ax.patches, *ax.lines, *ax.texts, *ax.collections, *ax.artists]
+    return [a.get_gid() for a in artists if a.get_gid()]
+
+
+@pytest.mark.parametrize('count', [8, 72])
+@pytest.mark.parametrize('overrides', CONFIGS.values(), ids=CONFIGS.keys())
+def test_uncovered_headings_are_the_rows_no_sensor_covers(overrides, count):
+    """Equal to the headings whose coverage() row is all False (numpy reference)."""
+    config = make_config(overrides)
+    headings = uniform_headings(count)
+    table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint, headings)
+    expected = headings[~np.any(table, axis=1)]
+    np.testing.assert_array_equal(uncovered_headings(config, count), expected)
+
+
+def test_test_robot_leaves_exactly_left_and_right_uncovered():
+    """Front beam at x=0.5 facing +x and rear at x=-0.5 facing -x: pure sideways travel is
+    unwatched (hand geometry: both cones lie beyond the box's x extent), forward and reverse
+    are watched."""
+    found = uncovered_headings(make_config(), 4)  # 0, pi/2, pi, 3pi/2
+    np.testing.assert_allclose(found, [math.pi / 2, 3 * math.pi / 2])
+
+
+@pytest.mark.parametrize('free_m', [0.5, 1.0, 5.0])
+def test_polar_speed_is_max_safe_speed_where_covered_and_fallback_where_not(free_m):
+    """Covered: max_safe_speed at the worst detection latency + reaction, capped; else fallback."""
+    config = make_config({'limits.fallback_speed': 0.25, 'robot.reaction_time': 0.12})
+    got = safe_speed_by_heading(config, free_m)
+    # Two sensors, one slot each, each slot one echo timeout 2R/c at R = 4 m (the default):
+    # worst detection latency = cycle - own slot + 2R/c = 2 * 2R/c for both.
+    latency = 2 * (2 * 4.0 / C20) + 0.12
+    covered = ~np.isin(got.headings_rad, uncovered_headings(config, len(got.headings_rad)))
+    np.testing.assert_array_equal(got.covered, covered)
+    # reference.md sec. 5 closed form via sonar_guard.core.braking, checked there against the
+    # reference table
+    v = min(max_safe_speed(free_m, latency, 0.8, 0.1), 1.0)
+    np.testing.assert_allclose(got.speeds_mps[covered], v, rtol=1e-12)
+    np.testing.assert_allclose(got.latency_s[covered], latency, rtol=1e-9)
+    np.testing.assert_array_equal(got.speeds_mps[~covered], 0.25)
+    assert np.isnan(got.latency_s[~covered]).all()
+
+
+def test_polar_speed_uses_the_slowest_covering_sensor():
+    """Where two sensors cover a heading, the worse of their detection latencies counts."""
+    # 'behind' moved to the left side facing left; slots of 50 ms and 20 ms, so cycle 70 ms
+    # and latencies (cycle - own slot + 2R/c) of 20 ms + 2R/c for ahead, 50 ms + 2R/c behind
+    config = make_config({'sensors.behind.x': 0.0, 'sensors.behind.y': 0.3,
+                          'sensors.behind.yaw': math.pi / 2,
+                          'sensors.ahead.slot_duration': 0.05,
+                          'sensors.behind.slot_duration': 0.02})
+    got = safe_speed_by_heading(config, 1.0)
+    headings = uniform_headings(72)
+    table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint, headings)
+    both, only_ahead = table.all(axis=1), table[:, 0] & ~table[:, 1]
+    assert both.any() and only_ahead.any()
+    timeout = 2 * 4.0 / C20
+    np.testing.assert_allclose(got.latency_s[both], 0.05 + timeout + 0.10, rtol=1e-9)
+    np.testing.assert_allclose(got.latency_s[only_ahead], 0.02 + timeout + 0.10, rtol=1e-9)
+
+
+def test_polar_plot_draws_the_computed_speeds_as_a_closed_curve():
+    """The curve's radii are safe_speed_by_heading's speeds, first point repeated at the end."""
+    config = make_config({'limits.fallback_speed': 0.2})
+    fig = Figure()
+    ax = fig.add_subplot(projection='polar')
+    draw_speed_polar(ax, config, 1.5)
+    line = next(li for li in ax.lines if li.get_gid() == 'safe-speed')
+    expected = safe_speed_by_heading(config, 1.5)
+    np.testing.assert_allclose(line.get_ydata()[:-1], expected.speeds_mps)
+    assert line.get_ydata()[-1] == line.get_ydata()[0]
+    fallback = next(li for li in ax.lines if li.get_gid() == 'fallback')
+    np.testing.assert_allclose(fallback.get_xdata(), uncovered_headings(config, 72))
+
+
+def test_polar_plot_refuses_a_cartesian_axes():
+    """A plain axes is a usage error, said in words."""
+    with pytest.raises(ValueError, match='polar'):
+        draw_speed_polar(Figure().add_subplot(), make_config(), 1.0)
+
+
+@pytest.mark.parametrize('overrides', CONFIGS.values(), ids=CONFIGS.keys())
+def test_layout_draws_footprint_a_cone_per_sensor_and_a_wedge_per_uncovered_heading(overrides):
+    """One footprint, one beam wedge per sensor, one warning wedge per uncovered heading."""
+    config = make_config(overrides)
+    ax = Figure().add_subplot()
+    draw_layout(ax, config, heading_count=36)
+    drawn = gids(ax)
+    assert drawn.count('footprint') == 1
+    assert drawn.count('beam') == len(config.sensors)
+    assert drawn.count('uncovered') == len(uncovered_headings(config, 36))
+    np.testing.assert_allclose(ax.patches[0].get_xy()[:-1], config.robot.footprint.points)
+    assert ax.get_aspect() == 1.0
+    assert ax.get_legend() is not None
+
+
+def test_layout_marks_forward_and_reverse_for_a_robot_that_only_drives_those():
+    """Non-holonomic: both driven headings marked; covered in the trusted colour, else not."""
+    ax = Figure().add_subplot()
+    draw_layout(ax, make_config({'sensors.behind.yaw': 1.2}))
+    texts = {t.get_gid(): t for t in ax.texts if t.get_gid()}
+    assert {'heading-forward-text', 'heading-reverse-text'} <= set(texts)
+    assert to_rgba(texts['heading-forward-text'].get_color()) == to_rgba(COLOURS['trusted'])
+    assert to_rgba(texts['heading-reverse-text'].get_color()) == to_rgba(COLOURS['uncovered'])
+
+
+def test_layout_of_a_holonomic_robot_marks_no_driven_headings():
+    """Every heading is driven: no forward/reverse marks."""
+    ax = Figure().add_subplot()
+    draw_layout(ax, make_config({'robot.holonomic': True}))
+    assert not [g for g in gids(ax) if g.startswith('heading-')]
+
+
+def test_save_layout_png_writes_a_png_of_the_figure_size(tmp_path):
+    """11 x 5.4 inches at 100 dpi is 1100 x 540 pixels."""
+    path = tmp_path / 'layout.png'
+    save_layout_png(make_config(), path, free_distance_m=2.0)
+    assert png_size(path.read_bytes()) == (1100, 540)
+
+
+def test_figure_png_base64_gives_png_text_and_releases_the_figure():
+    """Base64 text of a PNG; the figure is cleared afterwards."""
+    fig = layout_figure(make_config())
+    text = figure_png_base64(fig)
+    assert isinstance(text, str)
+    assert png_size(base64.b64decode(text, validate=True)) == (1100, 540)
+    assert fig.axes == []
+
+
+def test_verdict_and_event_colours_cover_every_verdict_and_kind_and_differ():
+    """One colour per verdict (VERDICT_CODES order) and per event kind; verdicts distinct."""
+    assert set(VERDICT_COLOURS) == set(VERDICT_CODES)
+    assert len({to_rgba(c) for c in VERDICT_COLOURS.values()}) == len(VERDICT_COLOURS)
+    assert set(EVENT_KINDS) <= set(EVENT_COLOURS)
+    for kind in set(EVENT_KINDS) & set(VERDICT_COLOURS):
+        assert EVENT_COLOURS[kind] == VERDICT_COLOURS[kind]
+
+
+# ------------------------------------------------------------------ recording plots
+
+
+def recording(ranges: list[float], verdicts: list[str], events=()) -> BagResult:
+    s = SensorSummary('ahead', 'sonar/ahead')
+    for i, (r, v) in enumerate(zip(ranges, verdicts)):
+        s.readings += 1
+        s.ranges.add(T0 + i, r, VERDICT_CODES[v])
+        s.latencies.add(0.05)
+        s.periods.add(0.1)
+    result = BagResult('/b', make_config(), 'test', sensors=[s], events=list(events),
+                       t_start=T0, t_end=T0 + len(ranges))
+    for i in range(len(ranges)):
+        result.limit.add(T0 + i, 0.5)
+        result.speed.add(T0 + i, 0.4)
+    return result
+
+
+def test_range_plot_puts_non_finite_and_out_of_range_readings_on_the_top_edge():
+    """+inf, NaN and beyond-axis ranges are drawn at the top edge, finite ones where they are."""
+    result = recording([1.0, math.inf, 2.0, math.nan, 50.0],
+                       ['ok', 'no_echo', 'ok', 'invalid', 'no_echo'])
+    fig = range_figure(result)
+    ax = fig.axes[0]
+    top = 4.0 * 1.08  # default max_range 4 m, plus the headroom the plot keeps
+    points = np.concatenate([c.get_offsets() for c in ax.collections
+                             if len(c.get_offsets())])
+    by_time = {round(float(t), 6): float(y) for t, y in points}
+    assert by_time == {0.0: 1.0, 1.0: pytest.approx(top), 2.0: 2.0,
+                       3.0: pytest.approx(top), 4.0: pytest.approx(top)}
+    assert ax.get_ylim()[1] >= top
+
+
+def test_range_plot_colours_each_point_by_its_verdict():
+    """The dot of an ok reading is VERDICT_COLOURS['ok'], a blind one VERDICT_COLOURS['blind']."""
+    fig = range_figure(recording([1.0, 0.05], ['ok', 'blind']))
+    dots = fig.axes[0].collections[0]
+    colours = [tuple(c) for c in dots.get_facecolors()]
+    assert colours == [to_rgba(VERDICT_COLOURS['ok']), to_rgba(VERDICT_COLOURS['blind'])]
+
+
+def test_range_and_speed_plots_shade_events_of_their_sensor_and_of_the_robot():
+    """A sensor's events go in its row, robot events (sensor None) in the speed plot."""
+    events = [Event('blind', 'ahead', T0 + 1, T0 + 2, 'x'),
+              Event('overspeed', None, T0 + 2, T0 + 3, 'y')]
+    result = recording([1.0, 0.05, 0.05, 1.0], ['ok', 'blind', 'blind', 'ok'], events)
+    assert 'event-blind' in gids(range_figure(result).axes[0])
+    assert 'event-overspeed' not in gids(range_figure(result).axes[0])
+    assert 'event-overspeed' in gids(speed_figure(result).axes[0])
+
+
+@pytest.mark.parametrize('make', [range_figure, speed_figure, timing_figure])
+def test_plots_of_an_empty_recording_say_no_data(make):
+    """No readings: the figure is drawn and says 'no data' instead of failing."""
+    for sensors in ([], [SensorSummary('ahead', 'sonar/ahead')]):
+        empty = BagResult('/b', make_config(), 'test', sensors=sensors)
+        fig = make(empty)
+        assert any('no-data' in gids(ax) for ax in fig.axes)
+        assert base64.b64decode(figure_png_base64(fig))[:8] == PNG_SIGNATURE
+
+
+def test_names_with_dollar_signs_are_drawn_literally():
+    """A name that matplotlib would parse as mathtext is drawn as typed and does not fail."""
+    result = recording([1.0], ['ok'])
+    result.sensors[0].name = '$\\frac{$'
+    fig = range_figure(result)
+    shown, is_math = fig.axes[0].yaxis.label._preprocess_math(fig.axes[0].get_ylabel())
+    assert (shown, is_math) == ('$\\frac{$', False)  # what matplotlib will draw, as typed
+    assert figure_png_base64(fig)
