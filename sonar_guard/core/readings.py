@@ -101,19 +101,26 @@ class ReadingCheck:
 
 
 def check_metadata(reading: RangeReading, sensor: SensorConfig) -> str:
-    """Return why the message's own fields disagree with the configuration, or ''."""
+    """Return why the message's own fields disagree with the configuration, or ''.
+
+    The configuration may be more cautious than the message (a larger min_range, a smaller
+    max_range); it may not be bolder: a message claiming a larger blind range or a shorter
+    reach than configured, or another beam width, is not the sensor configured.
+    """
     if reading.radiation_type is not None and reading.radiation_type != RADIATION_ULTRASOUND:
         return f'radiation_type {reading.radiation_type} is not ULTRASOUND (0)'
-    for label, got, want in (
-        ('min_range', reading.min_range_m, sensor.min_range_m),
-        ('max_range', reading.max_range_m, sensor.max_range_m),
-        ('field_of_view', reading.field_of_view_rad, sensor.field_of_view_rad),
+    for label, got, want, sign in (
+        ('min_range', reading.min_range_m, sensor.min_range_m, 1.0),  # got <= want is fine
+        ('max_range', reading.max_range_m, sensor.max_range_m, -1.0),  # got >= want is fine
+        ('field_of_view', reading.field_of_view_rad, sensor.field_of_view_rad, 0.0),
     ):
         if got is None:
             continue
-        if not math.isfinite(got) or abs(got - want) > max(_META_ABS_TOL, _META_REL_TOL * want):
+        tol = max(_META_ABS_TOL, _META_REL_TOL * want)
+        excess = (got - want) * sign if sign else abs(got - want)
+        if not math.isfinite(got) or excess > tol:
             unit = 'rad' if label == 'field_of_view' else 'm'
-            return f'message {label} {got:g} {unit} differs from configured {want:g} {unit}'
+            return f'message {label} {got:g} {unit} disagrees with configured {want:g} {unit}'
     if sensor.frame_id and reading.frame_id is not None and reading.frame_id != sensor.frame_id:
         return f'frame_id {reading.frame_id!r} is not the configured {sensor.frame_id!r}'
     return ''

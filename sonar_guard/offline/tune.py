@@ -28,6 +28,10 @@ __all__ = ['Evidence', 'Proposal', 'gather', 'propose', 'render_params']
 
 _STALE_HEADROOM = 1.5
 _BRAKE_MIN_DROP_MPS = 0.15  # a braking stretch must shed at least this much speed
+_BRAKE_MIN_S = 0.2  # ... over at least this long
+_BRAKE_MIN_SAMPLES = 5  # ... and this many odometry samples
+_BRAKE_MAX_STEP_S = 0.2  # a longer gap in odometry ends a stretch
+_MIN_STOPS = 3  # braking stretches needed before decel is proposed
 _CMD_STEP_MPS = 0.1  # a command change this large is a step to time the response to
 _RESPONSE_MPS = 0.03  # measured speed moving this much toward the new command is a response
 _CEILING_SHARE = 0.01  # a reported maximum held by this share of readings is the no-echo value
@@ -108,6 +112,10 @@ def _gather_one(path: str, config: Config, ev: Evidence, cmd_topic: str) -> None
             else:
                 linear = msg.twist.linear if hasattr(msg, 'twist') else msg.linear
                 react.command(t_s, linear.x)
+        brake.finish()
+        if len(ev.decels) < _MIN_STOPS:
+            ev.notes.append(f'{path}: fewer than {_MIN_STOPS} clean braking stretches so far: '
+                            'decel is proposed from at least that many')
         if not cmds:
             ev.notes.append(f'{path}: no {cmd_topic} commands recorded: reaction time not '
                             'measured')
@@ -141,23 +149,32 @@ class _BrakeTracker:
         self.out = out
         self.start: tuple[float, float] | None = None
         self.last: tuple[float, float] | None = None
+        self.samples = 0
 
     def add(self, t: float, speed: float) -> None:
         last = self.last
         self.last = (t, speed)
         if last is None:
             return
-        if speed < last[1] - 1e-4:
+        if speed < last[1] - 1e-4 and t - last[0] <= _BRAKE_MAX_STEP_S:
             if self.start is None:
-                self.start = last
+                self.start, self.samples = last, 1
+            self.samples += 1
             return
         self._close(last)
+
+    def finish(self) -> None:
+        """Close a stretch still open at the end of the recording."""
+        if self.last is not None:
+            self._close(self.last)
 
     def _close(self, end: tuple[float, float]) -> None:
         if self.start is not None:
             drop = self.start[1] - end[1]
             dt = end[0] - self.start[0]
-            if drop >= _BRAKE_MIN_DROP_MPS and dt > 0:
+            # a real stop takes time over several samples; a one-sample step is a glitch
+            if drop >= _BRAKE_MIN_DROP_MPS and dt >= _BRAKE_MIN_S and \
+                    self.samples >= _BRAKE_MIN_SAMPLES:
                 self.out.append(drop / dt)
         self.start = None
 
@@ -169,6 +186,7 @@ class _ReactionTracker:
         self.out = out
         self.cmd = math.nan
         self.pending: tuple[float, float, float] | None = None  # (t, speed then, target)
+        self.onset: float | None = None
         self.speed = math.nan
 
     def command(self, t: float, vx: float) -> None:
@@ -185,11 +203,13 @@ class _ReactionTracker:
             return
         t0, v0, target = self.pending
         toward = (vx - v0) * math.copysign(1.0, target - v0)
-        if toward >= _RESPONSE_MPS:
-            self.out.append(t - t0)
-            self.pending = None
+        if self.onset is None and toward > 0.2 * _RESPONSE_MPS:
+            self.onset = t  # the first sample that moved: when the response began
+        if toward >= _RESPONSE_MPS:  # a clear response: time it from its onset
+            self.out.append((self.onset if self.onset is not None else t) - t0)
+            self.pending, self.onset = None, None
         elif t - t0 > 2.0:
-            self.pending = None  # no response within 2 s: not a clean step
+            self.pending, self.onset = None, None  # no response within 2 s: not a clean step
 
 
 def _floor_to(value: float, step: float) -> float:
@@ -210,7 +230,9 @@ def propose(config: Config, ev: Evidence) -> list[Proposal]:
         if se.periods:
             gaps.append(max(se.periods))
             medians.append(float(np.median(se.periods)))
-        if math.isfinite(se.consistent_min):
+        # only readings below the configured blind range say anything about it: an absence
+        # of close readings is no evidence for a larger one
+        if math.isfinite(se.consistent_min) and se.consistent_min < s.min_range_m:
             value = round(max(_floor_to(se.consistent_min, s.resolution_m), 0.0), 4)
             if abs(value - s.min_range_m) > s.resolution_m / 2:
                 below = sum(1 for r in se.ranges if r < s.min_range_m)
@@ -249,7 +271,7 @@ def propose(config: Config, ev: Evidence) -> list[Proposal]:
                     f'measured median period {cycle * 1e3:.1f} ms over {slots} slots, '
                     f'planned cycle {planned * 1e3:.1f} ms from echo timeouts',
                     looser=cycle < planned))
-    if ev.decels:
+    if len(ev.decels) >= _MIN_STOPS:
         value = round(float(np.percentile(ev.decels, 5)), 3)
         current = config.robot.decel_mps2
         out.append(Proposal(

@@ -92,7 +92,7 @@ class TestMessageMetadata:
 
     @pytest.mark.parametrize('meta, needle', [
         ({'min_range_m': 0.25}, 'min_range'),
-        ({'max_range_m': 6.0}, 'max_range'),
+        ({'max_range_m': 3.0}, 'max_range'),
         ({'field_of_view_rad': 0.3}, 'field_of_view'),
         ({'radiation_type': 1}, 'ULTRASOUND'),  # Range.msg: INFRARED=1
         ({'max_range_m': math.nan}, 'max_range'),
@@ -102,6 +102,12 @@ class TestMessageMetadata:
         check = validator().check(reading(1.0, **meta))
         assert check.verdict is Verdict.INVALID
         assert needle in check.reason
+
+    def test_configuration_more_cautious_than_the_message_is_fine(self):
+        """Configured min above the message's, max below it: the reading is used."""
+        check = validator({'sonar.min_range': 0.3, 'sonar.max_range': 3.0}).check(
+            reading(1.0, min_range_m=0.15, max_range_m=4.0))
+        assert check.verdict is Verdict.OK
 
     def test_wrong_frame_is_invalid_only_when_a_frame_is_configured(self):
         """frame_id is checked against sensors.<name>.frame_id when that is set."""
