@@ -230,7 +230,9 @@ class Monitor:
         self._odom: OdometrySample | None = None
         self._pose = Motion()
         self._heading = 0.0
-        self._limit = math.nan
+        # start where silence leaves it: the fallback, then rise as trusted readings come in
+        lim = self.config.limits
+        self._limit = min(lim.fallback_speed_mps, lim.max_speed_mps)
         self._limit_time = math.nan
         self._excess_since: float | None = None
         self._excess_allow = 0.0
@@ -467,9 +469,12 @@ class Monitor:
         return min(best, lim.max_speed_mps), reason, limiting, covering, fell_back
 
     def _rise_limited(self, target: float, now: float) -> float:
-        if math.isnan(self._limit) or target <= self._limit:
+        if target <= self._limit:
             self._limit_time = now
             return target
+        if math.isnan(self._limit_time):  # first decision: rise from the starting limit
+            self._limit_time = now
+            return self._limit
         dt = max(0.0, now - self._limit_time)
         self._limit_time = now
         return min(target, self._limit + self.config.limits.rise_rate_mps2 * dt)

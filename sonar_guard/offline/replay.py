@@ -14,7 +14,7 @@ import re
 from typing import Any
 
 from sonar_guard.core.config import Config, build_config
-from sonar_guard.core.monitor import Monitor
+from sonar_guard.core.monitor import Decision, Monitor
 from sonar_guard.errors import RecordingError
 from sonar_guard.offline.bags import ODOMETRY_TYPE, RANGE_TYPE, BagSource, TopicInfo
 from sonar_guard.offline.results import VERDICT_CODES, BagResult, SensorSummary
@@ -107,8 +107,10 @@ def config_from_messages(firsts: Mapping[str, Any], odometry: str | None,
 class Replayer:
     """Feed one recording's messages to a Monitor and collect what happens."""
 
-    def __init__(self, config: Config, wiring: Wiring, result: BagResult) -> None:
+    def __init__(self, config: Config, wiring: Wiring, result: BagResult, *,
+                 on_decision: Callable[[Decision], None] | None = None) -> None:
         self.config = config
+        self.on_decision = on_decision
         self.wiring = wiring
         self.result = result
         self.monitor = Monitor(config)
@@ -158,6 +160,8 @@ class Replayer:
 
     def _tick(self, t_s: float) -> None:
         decision = self.monitor.tick(t_s)
+        if self.on_decision is not None:
+            self.on_decision(decision)
         self.result.limit.add(t_s, decision.limit_mps)
         self.result.speed.add(t_s, decision.speed_mps)
         self.result.events.extend(self.monitor.pop_events())

@@ -180,9 +180,10 @@ class SonarGuardNode(Node):
             return
         check = self.monitor.on_range(range_to_reading(sensor, msg, now))
         line = self._transitions.note(sensor, check.verdict, check.reason, time.monotonic())
-        if line:
-            log = self.get_logger()
-            (log.info if check.verdict.trusted else log.warning)(line)
+        if line and check.verdict.trusted:  # rclpy wants one severity per call site
+            self.get_logger().info(line)
+        elif line:
+            self.get_logger().warning(line)
         self._decide(now, publish_drop=True)
 
     def _on_odom(self, msg: Odometry) -> None:

@@ -115,7 +115,7 @@ def test_before_periods_are_measured_the_configured_latency_is_used():
     run.m.on_range(RangeReading('ahead', stamp, r, stamp))
     d = run.m.tick(stamp)
     latency = CYCLE - TIMEOUT + TIMEOUT + 0.12  # design.md detection_latency + reaction
-    assert d.limit_mps == pytest.approx(v_max(r, latency, 0.7, 0.1), rel=1e-9)
+    assert d.target_mps == pytest.approx(v_max(r, latency, 0.7, 0.1), rel=1e-9)
 
 
 def test_reverse_travel_is_limited_by_the_rear_sensor():
@@ -215,6 +215,16 @@ def test_blind_reading_stops_the_robot_in_that_direction():
     assert blind and blind[0].t_start == run.stamps['ahead'][0]
 
 
+def test_limit_starts_at_fallback_and_rises_at_rise_rate():
+    """Before anything is known the limit is fallback_speed; it then climbs at rise_rate."""
+    run = Run({'limits.rise_rate': 0.5, 'limits.fallback_speed': 0.1})
+    first = run.drive(0.02, vx=0.0, silent=('ahead', 'behind'))
+    assert first.limit_mps == 0.1
+    later = run.drive(1.0, vx=0.0)
+    assert later.limit_mps <= 0.1 + 0.5 * (later.time_s - first.time_s) + 1e-9
+    assert later.limit_mps > 0.1
+
+
 def test_limit_drops_at_once_and_rises_at_rise_rate():
     """limits.rise_rate bounds how fast the limit climbs back."""
     run = Run({'limits.rise_rate': 0.5})
@@ -312,7 +322,7 @@ def test_more_free_distance_never_lowers_the_engine_limit(r1, r2, age):
         m = Monitor(make_config(SCENARIO))
         m.on_odometry(OdometrySample(0.0, 0.2, 0.0, 0.0, 0.0))
         m.on_range(RangeReading('ahead', 0.01, r, 0.01))
-        limits.append(m.tick(0.01 + age).limit_mps)
+        limits.append(m.tick(0.01 + age).target_mps)
     assert 0.0 <= limits[0] <= limits[1] <= 1.5
 
 
