@@ -49,6 +49,10 @@ def cmd_budget(args: argparse.Namespace) -> int:
     for warning in config.warnings:
         print(f'warning: {warning}', file=sys.stderr)
     budget = budget_of(config)
+    if args.plot:
+        from sonar_guard.plots import save_layout_png
+        save_layout_png(config, args.plot, args.free_distance)
+        print(f'layout plot written to {args.plot}', file=sys.stderr)
     if args.json:
         json.dump(budget.to_dict(), sys.stdout, indent=2)
         sys.stdout.write('\n')
@@ -194,6 +198,11 @@ def build_parser() -> argparse.ArgumentParser:
                         help='ROS 2 parameter file (default: the installed '
                              'config/sonar_guard.yaml)')
     budget.add_argument('--json', action='store_true', help='print JSON instead of tables')
+    budget.add_argument('--plot', metavar='FILE.png',
+                        help='also draw the layout: footprint, mounts and cones with uncovered '
+                             'headings shaded, and the largest safe speed by heading')
+    budget.add_argument('--free-distance', type=float, default=1.0, metavar='M',
+                        help='free distance for the speed-by-heading plot (default 1.0 m)')
     budget.set_defaults(func=cmd_budget)
 
     check = sub.add_parser(

@@ -43,6 +43,7 @@ __all__ = [
     'draw_layout',
     'draw_speed_polar',
     'figure_png_base64',
+    'figure_png_bytes',
     'layout_figure',
     'range_figure',
     'safe_speed_by_heading',
@@ -318,12 +319,9 @@ def layout_figure(config: Config, free_distance_m: float = 1.0) -> Figure:
 
 
 def save_layout_png(config: Config, path: str | Path, free_distance_m: float = 1.0) -> None:
-    """Write :func:`layout_figure` to ``path`` as a PNG (100 dpi)."""
-    fig = layout_figure(config, free_distance_m)
-    try:
-        fig.savefig(path, format='png', dpi=100)
-    finally:
-        _close(fig)
+    """Write :func:`layout_figure` to ``path`` as a PNG (100 dpi), whole or not at all."""
+    from sonar_guard.offline.atomic import write_bytes_atomic
+    write_bytes_atomic(path, figure_png_bytes(layout_figure(config, free_distance_m)))
 
 
 def _close(fig: Figure) -> None:
@@ -334,14 +332,19 @@ def _close(fig: Figure) -> None:
     fig.clear()
 
 
-def figure_png_base64(fig: Figure, dpi: int = 100) -> str:
-    """Return the figure as PNG, base64 text (for a data: URI); the figure is closed."""
+def figure_png_bytes(fig: Figure, dpi: int = 100) -> bytes:
+    """Return the figure as PNG bytes; the figure is closed."""
     buffer = io.BytesIO()
     try:
         fig.savefig(buffer, format='png', dpi=dpi)
     finally:
         _close(fig)
-    return base64.b64encode(buffer.getvalue()).decode('ascii')
+    return buffer.getvalue()
+
+
+def figure_png_base64(fig: Figure, dpi: int = 100) -> str:
+    """Return the figure as PNG, base64 text (for a data: URI); the figure is closed."""
+    return base64.b64encode(figure_png_bytes(fig, dpi)).decode('ascii')
 
 
 # ------------------------------------------------------------------ recordings

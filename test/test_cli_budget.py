@@ -145,3 +145,19 @@ def test_help_carries_the_safety_caution():
     for needle in ('not a certified safety function', 'ISO 3691-4', 'ISO 13482',
                    'ANSI/RIA R15.08', 'blind zone', 'crosstalk'):
         assert needle in text
+
+
+def test_budget_plot_writes_the_layout_png(tmp_path, capsys):
+    """--plot FILE.png draws the layout; the file is a PNG (signature per the PNG spec)."""
+    out = tmp_path / 'layout.png'
+    assert main(['budget', '--plot', str(out)]) == 0
+    assert out.read_bytes()[:8] == b'\x89PNG\r\n\x1a\n'  # PNG file signature (RFC 2083)
+
+
+def test_budget_plot_refuses_a_symlink(tmp_path, capsys):
+    """An output path that is a symbolic link is refused with exit 2."""
+    (tmp_path / 'elsewhere.png').write_bytes(b'')
+    link = tmp_path / 'layout.png'
+    link.symlink_to(tmp_path / 'elsewhere.png')
+    assert main(['budget', '--plot', str(link)]) == 2
+    assert 'symbolic link' in capsys.readouterr().err

@@ -7,7 +7,7 @@ import tempfile
 
 from sonar_guard.errors import SonarGuardError
 
-__all__ = ['OutputError', 'write_text_atomic']
+__all__ = ['OutputError', 'write_bytes_atomic', 'write_text_atomic']
 
 
 class OutputError(SonarGuardError):
@@ -21,10 +21,15 @@ def _umask() -> int:
 
 
 def write_text_atomic(path: str | Path, text: str) -> Path:
-    """Write ``text`` to ``path`` through a temporary file in the same folder, then rename.
+    """Write ``text`` (UTF-8) to ``path`` whole or not at all; see :func:`write_bytes_atomic`."""
+    return write_bytes_atomic(path, text.encode('utf-8'))
+
+
+def write_bytes_atomic(path: str | Path, data: bytes) -> Path:
+    """Write ``data`` to ``path`` through a temporary file in the same folder, then rename.
 
     A reader never sees a half-written file. A symbolic link at ``path`` is refused: it
-    could send the report somewhere the user did not name.
+    could send the output somewhere the user did not name.
     """
     target = Path(path)
     if target.is_symlink():
@@ -34,8 +39,8 @@ def write_text_atomic(path: str | Path, text: str) -> Path:
         raise OutputError(f'{target}: folder {folder} does not exist')
     fd, tmp = tempfile.mkstemp(prefix=f'.{target.name}.', suffix='.tmp', dir=folder)
     try:
-        with os.fdopen(fd, 'w', encoding='utf-8') as handle:
-            handle.write(text)
+        with os.fdopen(fd, 'wb') as handle:
+            handle.write(data)
         os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
         os.replace(tmp, target)
     except OSError as err:
