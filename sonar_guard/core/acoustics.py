@@ -18,6 +18,8 @@ from collections.abc import Collection
 import math
 import numbers
 
+from sonar_guard.core.arguments import non_negative, real
+
 __all__ = [
     'C0_MPS',
     'MAX_AIR_TEMP_C',
@@ -45,28 +47,14 @@ MAX_AIR_TEMP_C = 150.0
 """Warmest air temperature accepted, degC (beyond it the input is almost surely a unit slip)."""
 
 
-def _number(name: str, value: object, rule: str) -> float:
-    """Return ``value`` as a float, or raise ValueError when it is not a real number."""
-    if type(value) is float:
-        return value
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ValueError(f'{name} must be {rule}: {value!r}')
-    return float(value)
 
 
-def _non_negative(name: str, value: object, unit: str) -> float:
-    """Return ``value`` as a float after checking it is finite and >= 0."""
-    rule = f'a finite number >= 0 {unit}'
-    number = _number(name, value, rule)
-    if not (math.isfinite(number) and number >= 0.0):
-        raise ValueError(f'{name} must be {rule}: {number!r}')
-    return number
 
 
 def _temperature(name: str, value: object) -> float:
     """Return an air temperature in degC after checking it is physical and in the sane window."""
     rule = f'a finite number in [{MIN_AIR_TEMP_C:g}, {MAX_AIR_TEMP_C:g}] degC'
-    temp_c = _number(name, value, rule)
+    temp_c = real(name, value, rule)
     if temp_c <= -ZERO_CELSIUS_K:
         raise ValueError(f'{name} must be above absolute zero (-{ZERO_CELSIUS_K} degC) and '
                          f'in [{MIN_AIR_TEMP_C:g}, {MAX_AIR_TEMP_C:g}] degC: {temp_c!r}')
@@ -87,25 +75,25 @@ def speed_of_sound(temp_c: float = 20.0) -> float:
 
 def range_from_tof(tof_s: float, temp_c: float = 20.0) -> float:
     """Return the one-way range c*t/2 in m for a round-trip echo time ``tof_s`` in s."""
-    tof = _non_negative('tof_s', tof_s, 's')
+    tof = non_negative('tof_s', tof_s, 's')
     return 0.5 * _speed(_temperature('temp_c', temp_c)) * tof
 
 
 def tof_from_range(range_m: float, temp_c: float = 20.0) -> float:
     """Return the round-trip echo time 2R/c in s for a target at ``range_m`` m."""
-    distance = _non_negative('range_m', range_m, 'm')
+    distance = non_negative('range_m', range_m, 'm')
     return 2.0 * distance / _speed(_temperature('temp_c', temp_c))
 
 
 def echo_timeout(max_range_m: float, temp_c: float = 20.0) -> float:
     """Return the round-trip time 2R/c in s to ``max_range_m`` m: how long to wait for an echo."""
-    distance = _non_negative('max_range_m', max_range_m, 'm')
+    distance = non_negative('max_range_m', max_range_m, 'm')
     return 2.0 * distance / _speed(_temperature('temp_c', temp_c))
 
 
 def blind_range(ring_down_s: float, temp_c: float = 20.0) -> float:
     """Return the nearest detectable range c*t_ring/2 in m for a ring-down time in s."""
-    ring_down = _non_negative('ring_down_s', ring_down_s, 's')
+    ring_down = non_negative('ring_down_s', ring_down_s, 's')
     return 0.5 * _speed(_temperature('temp_c', temp_c)) * ring_down
 
 
@@ -116,7 +104,7 @@ def reported_range(true_range_m: float, true_temp_c: float, assumed_temp_c: floa
     sound it assumes, so it reports ``R * c_assumed / c_true``: a sensor that assumes 20 degC
     reads long in colder (slower) air and short in warmer air.
     """
-    distance = _non_negative('true_range_m', true_range_m, 'm')
+    distance = non_negative('true_range_m', true_range_m, 'm')
     c_true = _speed(_temperature('true_temp_c', true_temp_c))
     c_assumed = _speed(_temperature('assumed_temp_c', assumed_temp_c))
     return distance * c_assumed / c_true
@@ -141,13 +129,13 @@ def detection_latency(slot_durations_s: Collection[float], sensor_index: int, ra
         raise ValueError(f'slot_durations_s must be {rule}: {slot_durations_s!r}')
     slots = []
     for position, item in enumerate(items):
-        slots.append(_non_negative(f'slot_durations_s[{position}]', item, 's'))
+        slots.append(non_negative(f'slot_durations_s[{position}]', item, 's'))
     count = len(slots)
     if (isinstance(sensor_index, bool) or not isinstance(sensor_index, numbers.Integral)
             or not 0 <= sensor_index < count):
         raise ValueError(f'sensor_index must be an int in [0, {count - 1}] '
                          f'(one per slot): {sensor_index!r}')
     index = int(sensor_index)
-    distance = _non_negative('range_m', range_m, 'm')
+    distance = non_negative('range_m', range_m, 'm')
     wait_for_others = math.fsum(slots[:index] + slots[index + 1:])
     return wait_for_others + 2.0 * distance / _speed(_temperature('temp_c', temp_c))

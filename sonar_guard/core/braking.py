@@ -19,10 +19,11 @@ naming the argument and showing the value.
 from __future__ import annotations
 
 import math
-import numbers
 
 import numpy as np
 import numpy.typing as npt
+
+from sonar_guard.core.arguments import non_negative, real
 
 __all__ = [
     'max_safe_speed',
@@ -31,27 +32,13 @@ __all__ = [
 ]
 
 
-def _number(name: str, value: object, rule: str) -> float:
-    """Return ``value`` as a float, or raise ValueError when it is not a real number."""
-    if type(value) is float:
-        return value
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ValueError(f'{name} must be {rule}: {value!r}')
-    return float(value)
 
 
-def _non_negative(name: str, value: object, unit: str) -> float:
-    """Return ``value`` as a float after checking it is finite and >= 0."""
-    rule = f'a finite number >= 0 {unit}'
-    number = _number(name, value, rule)
-    if not (math.isfinite(number) and number >= 0.0):
-        raise ValueError(f'{name} must be {rule}: {number!r}')
-    return number
 
 
 def _decel(value: object) -> float:
     """Return a deceleration in m/s^2 after checking it is finite and > 0."""
-    number = _number('decel', value, 'a finite number > 0 m/s^2')
+    number = real('decel', value, 'a finite number > 0 m/s^2')
     if not math.isfinite(number):
         raise ValueError(f'decel must be a finite number > 0 m/s^2: {number!r}')
     if number <= 0.0:
@@ -76,8 +63,8 @@ def _root(room_m: float, latency_s: float, decel: float) -> float:
 
 def stopping_distance(speed: float, latency_s: float, decel: float) -> float:
     """Return the distance in m to stop from ``speed`` m/s: speed*latency + speed^2/(2*decel)."""
-    v = _non_negative('speed', speed, 'm/s')
-    latency = _non_negative('latency_s', latency_s, 's')
+    v = non_negative('speed', speed, 'm/s')
+    latency = non_negative('latency_s', latency_s, 's')
     a = _decel(decel)
     return v * latency + v * v / (2.0 * a)
 
@@ -90,12 +77,12 @@ def max_safe_speed(free_distance_m: float, latency_s: float, decel: float,
     an obstacle already inside the footprint means stop) and ``math.inf`` when the free
     distance is ``+inf`` (nothing seen: no limit from this distance). NaN raises.
     """
-    distance = _number('free_distance_m', free_distance_m, 'a number (not NaN) in m')
+    distance = real('free_distance_m', free_distance_m, 'a number (not NaN) in m')
     if math.isnan(distance):
         raise ValueError(f'free_distance_m must be a number (not NaN) in m: {distance!r}')
-    latency = _non_negative('latency_s', latency_s, 's')
+    latency = non_negative('latency_s', latency_s, 's')
     a = _decel(decel)
-    margin = _non_negative('margin_m', margin_m, 'm')
+    margin = non_negative('margin_m', margin_m, 'm')
     room = distance - margin
     if room <= 0.0:
         return 0.0
@@ -115,7 +102,7 @@ def max_safe_speed_array(free_distance_m: npt.ArrayLike,
     raises, latencies must be finite and >= 0, +inf free distance gives inf.
     """
     a = _decel(decel)
-    margin = _non_negative('margin_m', margin_m, 'm')
+    margin = non_negative('margin_m', margin_m, 'm')
     try:
         distance = np.asarray(free_distance_m, dtype=np.float64)
     except (TypeError, ValueError) as err:

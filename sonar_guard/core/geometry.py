@@ -18,11 +18,12 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 import math
-import operator
 
 import numpy as np
 import numpy.typing as npt
 from transforms3d import affines, euler
+
+from sonar_guard.core.arguments import count_at_least
 
 __all__ = [
     'Footprint',
@@ -263,8 +264,8 @@ def covers_heading(mount: Mount, footprint: Footprint, heading_rad: float, *, ra
     A corridor that only a sliver of cone narrower than the ray spacing reaches can be missed.
     """
     heading = _finite(heading_rad, 'heading_rad')
-    ray_count = _positive_count(rays, 'rays')
-    sample_count = _positive_count(samples, 'samples')
+    ray_count = count_at_least('rays', rays, 1)
+    sample_count = count_at_least('samples', samples, 1)
     travel = np.array([math.cos(heading), math.sin(heading)])
     origin = np.array([mount.x_m, mount.y_m])
     half = mount.field_of_view_rad / 2.0
@@ -302,14 +303,14 @@ def coverage(mounts: Sequence[Mount], footprint: Footprint,
 def heading_index(heading_rad: float, count: int) -> int:
     """Return the index of the nearest of ``count`` evenly spaced headings from 0 rad (wraps)."""
     heading = _finite(heading_rad, 'heading_rad')
-    n = _positive_count(count, 'count')
+    n = count_at_least('count', count, 1)
     # A heading exactly halfway between two goes to the counter-clockwise one.
     return math.floor(heading / (_TAU / n) + 0.5) % n
 
 
 def uniform_headings(count: int) -> FloatArray:
     """Return ``count`` evenly spaced headings in [0, 2*pi) rad, starting at 0 (forward)."""
-    n = _positive_count(count, 'count')
+    n = count_at_least('count', count, 1)
     headings: FloatArray = _TAU * np.arange(n, dtype=float) / n
     return headings
 
@@ -344,17 +345,6 @@ def _finite(value: float, name: str) -> float:
     return number
 
 
-def _positive_count(value: int, name: str) -> int:
-    """Return ``value`` as an int >= 1 or raise ValueError naming ``name``."""
-    try:
-        if isinstance(value, bool):
-            raise TypeError
-        number = operator.index(value)
-    except TypeError:
-        raise ValueError(f'{name} must be an integer >= 1: {value!r}') from None
-    if number < 1:
-        raise ValueError(f'{name} must be an integer >= 1: {number}')
-    return number
 
 
 def _xy(value: npt.ArrayLike, name: str) -> FloatArray:

@@ -34,13 +34,13 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 import math
-import operator
 
 from builtin_interfaces.msg import Duration, Time
 from geometry_msgs.msg import Point
 from std_msgs.msg import ColorRGBA
 from visualization_msgs.msg import Marker, MarkerArray
 
+from sonar_guard.core.arguments import count_at_least
 from sonar_guard.core.config import Config, SensorConfig
 from sonar_guard.core.geometry import mount_quaternion
 from sonar_guard.core.monitor import Decision, SensorStatus, mount_of
@@ -94,14 +94,7 @@ def cone_points(length_m: float, fov_rad: float,
     fov = float(fov_rad)
     if not 0.0 < fov < math.pi:
         raise ValueError(f'fov_rad must be in (0, pi) rad: {fov_rad!r}')
-    try:
-        if isinstance(segments, bool):
-            raise TypeError
-        count = operator.index(segments)
-    except TypeError:
-        raise ValueError(f'segments must be an integer >= 3: {segments!r}') from None
-    if count < 3:
-        raise ValueError(f'segments must be an integer >= 3: {count}')
+    count = count_at_least('segments', segments, 3)
     radius = length * math.tan(fov / 2.0)
     rim = [(length, radius * math.cos(2.0 * math.pi * k / count),
             radius * math.sin(2.0 * math.pi * k / count)) for k in range(count)]
