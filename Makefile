@@ -20,7 +20,7 @@ test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 demo: $(STAMP)
-	$(BIN)/sonar-guard budget
+	$(BIN)/sonar-guard demo --out demo_out
 
 lint: $(STAMP)
 	$(BIN)/python -m ruff check sonar_guard test launch setup.py

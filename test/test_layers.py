@@ -34,7 +34,8 @@ def test_core_modules_import_nothing_from_the_shells():
                                     'sonar_guard.core.braking', 'sonar_guard.core.config',
                                     'sonar_guard.core.geometry', 'sonar_guard.core.monitor',
                                     'sonar_guard.core.readings', 'sonar_guard.core.schedule',
-                                    'sonar_guard.errors', 'sonar_guard.offline'])
+                                    'sonar_guard.errors', 'sonar_guard.offline',
+                                    'sonar_guard.sim'])
 def test_public_names_exist_and_all_is_sorted(module):
     """Every name in __all__ exists and the list is sorted (style.md facades)."""
     mod = importlib.import_module(module)

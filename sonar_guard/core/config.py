@@ -140,6 +140,9 @@ _GLOBAL_SPECS: tuple[ParamSpec, ...] = (
        'time without odometry before the limit falls back', 0.0, 60.0, low_open=True),
     _f('limits.rise_rate', 0.5, 'm/s^2', 'how fast the limit may rise; it drops at once', 0.0,
        100.0, low_open=True),
+    _f('limits.memory_hold', 0.0, 's',
+       'how long an obstacle whose echo was lost is held without a trusted echo (0: until '
+       'one comes)', 0.0, 600.0),
     _f('limits.overspeed_grace', 0.3, 's',
        'extra time, beyond reaction and braking, before speed above the limit is overspeed',
        0.0, 60.0),
@@ -227,6 +230,7 @@ class LimitsConfig:
     stale_after_s: float
     odom_stale_after_s: float
     rise_rate_mps2: float
+    memory_hold_s: float
     overspeed_grace_s: float
     overspeed_tolerance_mps: float
 
@@ -269,6 +273,7 @@ class Config:
             'limits.stale_after': self.limits.stale_after_s,
             'limits.odom_stale_after': self.limits.odom_stale_after_s,
             'limits.rise_rate': self.limits.rise_rate_mps2,
+            'limits.memory_hold': self.limits.memory_hold_s,
             'limits.overspeed_grace': self.limits.overspeed_grace_s,
             'limits.overspeed_tolerance': self.limits.overspeed_tolerance_mps,
             'odom_topic': self.odom_topic,
@@ -465,6 +470,7 @@ def build_config(values: Mapping[str, Any], *, source: str = '') -> Config:
         stale_after_s=r.get(g['limits.stale_after']),
         odom_stale_after_s=r.get(g['limits.odom_stale_after']),
         rise_rate_mps2=r.get(g['limits.rise_rate']),
+        memory_hold_s=r.get(g['limits.memory_hold']),
         overspeed_grace_s=r.get(g['limits.overspeed_grace']),
         overspeed_tolerance_mps=r.get(g['limits.overspeed_tolerance']),
     )

@@ -38,6 +38,7 @@ __all__ = [
     'mount_quaternion',
     'mount_transform',
     'polygon_problems',
+    'travel_to_arc',
     'uniform_headings',
 ]
 
@@ -298,6 +299,38 @@ def coverage(mounts: Sequence[Mount], footprint: Footprint,
             table[row, column] = covers_heading(mount, footprint, float(heading), rays=rays,
                                                 samples=samples)
     return table
+
+
+def travel_to_arc(mount: Mount, footprint: Footprint, heading_rad: float,
+                  ranges_m: npt.ArrayLike, *, arc_points: int = 9) -> FloatArray:
+    """Return, per range r, how far the robot can travel along a heading before it touches
+    the beam's arc at r, m (inf where the arc lies outside the corridor the footprint sweeps).
+
+    A reading r says the nearest echo lies somewhere on the arc of radius r across the cone.
+    Only the part of the arc inside the swept corridor can stop the robot; of that part, the
+    point the footprint reaches first bounds the travel. The arc is sampled with
+    ``arc_points`` points spread evenly across the cone (both edges included); points inside
+    the footprint give 0.
+    """
+    heading = _finite(heading_rad, 'heading_rad')
+    ranges = np.atleast_1d(np.asarray(ranges_m, dtype=np.float64))
+    if np.isnan(ranges).any():
+        raise ValueError('ranges_m must not be NaN')
+    count = count_at_least('arc_points', arc_points, 1)
+    half = mount.field_of_view_rad / 2.0
+    angles = mount.yaw_rad + (np.linspace(-half, half, count) if count > 1 else np.zeros(1))
+    rays = np.stack((np.cos(angles), np.sin(angles)), axis=-1)  # (A, 2)
+    origin = np.array([mount.x_m, mount.y_m])
+    finite = np.where(np.isfinite(ranges), ranges, 0.0)
+    points = origin + finite[:, np.newaxis, np.newaxis] * rays[np.newaxis]  # (R, A, 2)
+    flat = points.reshape(-1, 2)
+    back = np.broadcast_to(-np.array([math.cos(heading), math.sin(heading)]), flat.shape)
+    hits = _ray_boundary_hits(footprint.points, flat, back)  # (R*A, edges)
+    entry = np.where(np.isnan(hits), np.inf, hits).min(axis=1)
+    entry[_contains_points(footprint.points, flat)] = 0.0
+    travel: FloatArray = entry.reshape(points.shape[:2]).min(axis=1)
+    travel[~np.isfinite(ranges)] = np.inf
+    return travel
 
 
 def heading_index(heading_rad: float, count: int) -> int:

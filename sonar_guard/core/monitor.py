@@ -11,8 +11,10 @@ How the limit is found, for the current direction of travel:
   ``fallback_speed``;
 * each covering sensor bounds the speed by
   ``max_safe_speed(free distance, detection latency + reaction time + reading age, decel,
-  margin)``, where free distance is the range minus the mount's distance to the footprint edge
-  along the beam, 0 for a blind reading, and max range for no echo;
+  margin)``. A reading r puts the nearest echo somewhere on the arc of radius r across the
+  cone; the free distance is how far the footprint can travel along the heading before it
+  reaches the part of that arc inside the corridor it sweeps (a side wall seen at the cone's
+  edge does not limit travel past it). Blind readings count as r = 0, no echo as max range;
 * an obstacle that was closing in and then vanished into no echo (a lost echo, or an object
   inside the ring-down range) is remembered and dead-reckoned with odometry until a trusted
   reading clears it;
@@ -34,12 +36,13 @@ from sonar_guard.core.acoustics import echo_timeout
 from sonar_guard.core.braking import max_safe_speed
 from sonar_guard.core.config import Config, SensorConfig
 from sonar_guard.core.geometry import (
+    FloatArray,
     Footprint,
     Mount,
     beam_axis,
     coverage,
-    edge_offset_m,
     heading_index,
+    travel_to_arc,
     uniform_headings,
 )
 from sonar_guard.core.readings import Motion, RangeReading, ReadingCheck, ReadingValidator, Verdict
@@ -61,6 +64,7 @@ EVENT_KINDS: tuple[str, ...] = (
 STILL_SPEED_MPS = 0.02  # below this the direction of travel is kept, not re-read
 CLOCK_JUMP_S = 0.5  # time going back more than this resets every history
 HOLONOMIC_HEADINGS = 72  # 5 degree steps
+TABLE_STEP_M = 0.01  # range step of the precomputed travel tables
 _STRETCH_KINDS = {Verdict.BLIND: 'blind', Verdict.INVALID: 'invalid', Verdict.STALE: 'stale',
                   Verdict.STUCK: 'stuck'}  # 'late' follows ReadingCheck.late, any verdict
 
@@ -142,11 +146,14 @@ class _OpenEvent:
 class _SensorState:
     """Everything the engine remembers about one sensor."""
 
-    __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'edge_m', 'free_m',
-                 'free_stamp', 'last_ok_range', 'memory_m', 'memory_stamp', 'periods', 'timeout_s',
+    __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'free_m',
+                 'free_stamp', 'last_ok_range', 'memory_m', 'memory_since', 'memory_stamp',
+                 'periods', 'timeout_s',
+                 'tables',
                  'heard_stamp', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
+        self.tables: dict[float, FloatArray] = {}  # heading -> travel per TABLE_STEP_M of range
         self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
         self.configure(config, footprint, stale_after_s)
         self.periods = PeriodTracker()
@@ -155,9 +162,11 @@ class _SensorState:
 
     def configure(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.config = config
+        self.tables = {}
         mount = mount_of(config)
         self.axis = beam_axis(mount)
-        self.edge_m = edge_offset_m(mount, footprint)
+        self.footprint = footprint
+        self.tables = {}  # heading -> travel per TABLE_STEP_M of range
         self.timeout_s = echo_timeout(config.max_range_m, config.air_temperature_c)
         self.validator.configure(config, stale_after_s=stale_after_s)
 
@@ -172,9 +181,26 @@ class _SensorState:
         self.closing = False
         self.memory_m: float | None = None
         self.memory_stamp = math.nan
+        self.memory_since = math.nan  # when the obstacle's echo was lost
 
     def free_of(self, range_m: float) -> float:
-        return max(0.0, range_m - self.edge_m)
+        """Clip a range to what the sensor can report (its effective range, m)."""
+        return max(0.0, min(range_m, self.config.max_range_m))
+
+    def travel(self, range_m: float, heading: float) -> float:
+        """Return how far the robot may travel along ``heading`` before it reaches the arc
+        of a reading ``range_m`` (inf: the arc lies outside the swept corridor), m."""
+        table = self.tables.get(heading)
+        if table is None:
+            grid = np.arange(0.0, self.config.max_range_m + 2 * TABLE_STEP_M, TABLE_STEP_M)
+            table = travel_to_arc(mount_of(self.config), self.footprint, heading, grid)
+            self.tables[heading] = table
+        x = max(0.0, range_m) / TABLE_STEP_M
+        i = min(int(x), len(table) - 2)
+        a, b = float(table[i]), float(table[i + 1])
+        if math.isinf(a) or math.isinf(b):
+            return min(a, b)  # at the corridor's edge take the finite, nearer bound
+        return a + (b - a) * (x - i)
 
 
 class Monitor:
@@ -323,7 +349,7 @@ class Monitor:
             st.closing = False
         elif v is Verdict.BLIND:
             st.free_m, st.free_stamp = 0.0, t
-            st.memory_m, st.memory_stamp = 0.0, t
+            st.memory_m, st.memory_stamp, st.memory_since = 0.0, t, t
             st.closing = True
         elif v is Verdict.NO_ECHO:
             previous_verdict_closing = st.closing and st.last_ok_range is not None
@@ -331,10 +357,10 @@ class Monitor:
                 # carry the last free distance forward to now if the robot kept closing in
                 closing_mps = max(0.0, self._speed_along(st))
                 st.memory_m = max(0.0, st.free_m - closing_mps * max(0.0, t - st.free_stamp))
-                st.memory_stamp = t
+                st.memory_stamp = st.memory_since = t
                 self._stretch(cfg.name, 'no_echo', t,
                               f'echo lost at {st.last_ok_range:.3f} m while closing in; '
-                              f'kept at {st.free_m:.2f} m free until a trusted echo')
+                              f'kept at {st.memory_m:.2f} m until a trusted echo')
             st.closing = False
             st.last_ok_range = None
             st.free_m, st.free_stamp = st.free_of(cfg.max_range_m), t
@@ -367,14 +393,18 @@ class Monitor:
         c, s = math.cos(th), math.sin(th)
         self._pose = Motion(self._pose.x_m + (c * vx - s * vy) * dt,
                             self._pose.y_m + (s * vx + c * vy) * dt, th + wz * dt)
+        hold = self.config.limits.memory_hold_s
         for st in self._states.values():
             if st.memory_m is None:
+                continue
+            if hold > 0 and sample.stamp_s - st.memory_since > hold:
+                st.memory_m = None  # held long enough without a trusted echo (memory_hold)
                 continue
             along = vx * float(st.axis[0]) + vy * float(st.axis[1])
             moved = along * max(0.0, sample.stamp_s - max(previous.stamp_s, st.memory_stamp))
             st.memory_m = max(0.0, st.memory_m - moved)
             st.memory_stamp = max(st.memory_stamp, sample.stamp_s)
-            if st.memory_m > st.free_of(st.config.max_range_m):
+            if st.memory_m > st.config.max_range_m:
                 st.memory_m = None  # receded out of the sensor's reach
 
     # ------------------------------------------------------------------ decisions
@@ -430,6 +460,9 @@ class Monitor:
         """Return the sensors that cover travel along ``heading_rad``."""
         return self._covering[heading_index(heading_rad, len(self._headings))]
 
+    def _canonical(self, heading: float) -> float:
+        return float(self._headings[heading_index(heading, len(self._headings))])
+
     def detection_latency_s(self, name: str) -> float:
         """Worst-case detection latency of one sensor: measured when possible, else configured."""
         st = self._states[name]
@@ -442,7 +475,9 @@ class Monitor:
         """Return (limit, reason, limiting sensor, covering sensors, fell back) for a heading."""
         lim = self.config.limits
         robot = self.config.robot
-        covering = self.covering(heading)
+        index = heading_index(heading, len(self._headings))
+        covering = self._covering[index]
+        heading = float(self._headings[index])  # the canonical heading: one table each
         fallback = min(lim.fallback_speed_mps, lim.max_speed_mps)
         if not odom_fresh:
             return fallback, 'odometry stale or missing', None, covering, True
@@ -458,7 +493,8 @@ class Monitor:
                     why = 'silent' if silent else 'stuck'
                     best, reason, limiting = fallback, f'{name} {why}', name
                 continue
-            free = st.free_m if st.memory_m is None else min(st.free_m, st.memory_m)
+            seen = st.free_m if st.memory_m is None else min(st.free_m, st.memory_m)
+            free = st.travel(seen, heading)
             latency = (self.detection_latency_s(name) + robot.reaction_time_s
                        + max(0.0, now - st.free_stamp))
             speed = max_safe_speed(free, latency, robot.decel_mps2, lim.margin_m)
@@ -513,7 +549,9 @@ class Monitor:
             reason='no reading yet' if check is None else check.reason,
             last_range_m=math.nan if check is None else check.range_m,
             silent_for_s=silent_for, silent=silent_for > lim.stale_after_s,
-            free_distance_m=st.free_m, memory_m=st.memory_m,
+            free_distance_m=(st.travel(st.free_m, self._canonical(self._heading))
+                             if math.isfinite(st.free_m) else math.nan),
+            memory_m=st.memory_m,
             latency_s=self.detection_latency_s(name), period_median_s=st.periods.median_s,
             period_worst_s=st.periods.worst_s, counts=dict(st.counts))
 

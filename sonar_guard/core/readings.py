@@ -229,7 +229,8 @@ class ReadingValidator:
         else:
             self._run_count, self._run_range, self._run_pose = 1, r, pose
         if self._run_count >= s.stuck_count and pose is not None and self._run_pose is not None:
-            travel, turn = _travel_along_beam(self._run_pose, pose, s.yaw_rad)
+            travel, turn = _travel_along_beam(self._run_pose, pose, s.yaw_rad,
+                                              s.field_of_view_rad / 2)
             if abs(travel) >= s.stuck_travel_m or abs(turn) >= s.stuck_turn_rad:
                 return (Verdict.STUCK,
                         f'{self._run_count} readings at {self._run_range:.3f} m while the robot '
@@ -246,9 +247,17 @@ class ReadingValidator:
         return Verdict.OK, reason
 
 
-def _travel_along_beam(start: Motion, end: Motion, yaw_rad: float) -> tuple[float, float]:
-    """Return (travel along the beam axis at the start pose, turn) between two poses."""
+def _travel_along_beam(start: Motion, end: Motion, yaw_rad: float,
+                       half_fov_rad: float) -> tuple[float, float]:
+    """Return (travel along the beam that must change the reading, turn) between two poses.
+
+    Travel counts only when its direction lies inside the beam cone: then whatever echoes
+    gets nearer or farther. Travel at an angle to the beam can leave the reading unchanged
+    legitimately (a side wall parallel to the path, seen at the cone's edge).
+    """
     heading = start.theta_rad + yaw_rad
     dx, dy = end.x_m - start.x_m, end.y_m - start.y_m
-    travel = dx * math.cos(heading) + dy * math.sin(heading)
-    return travel, end.theta_rad - start.theta_rad
+    distance = math.hypot(dx, dy)
+    along = dx * math.cos(heading) + dy * math.sin(heading)
+    inside = distance > 0 and abs(along) >= distance * math.cos(half_fov_rad)
+    return (along if inside else 0.0), end.theta_rad - start.theta_rad

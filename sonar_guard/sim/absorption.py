@@ -79,7 +79,7 @@ def absorption_db_per_m(frequency_hz: float, temperature_c: float = 20.0,
     fr_o = pr * (24.0 + 4.04e4 * h * (0.02 + h) / (0.391 + h))
     fr_n = pr * tr ** -0.5 * (9.0 + 280.0 * h * math.exp(-4.170 * (tr ** (-1.0 / 3.0) - 1.0)))
     f2 = f * f
-    return 8.686 * f2 * (
+    return float(8.686 * f2 * (
         1.84e-11 / pr * math.sqrt(tr)
         + tr ** -2.5 * (0.01275 * math.exp(-2239.1 / t) / (fr_o + f2 / fr_o)
-                        + 0.1068 * math.exp(-3352.0 / t) / (fr_n + f2 / fr_n)))
+                        + 0.1068 * math.exp(-3352.0 / t) / (fr_n + f2 / fr_n))))

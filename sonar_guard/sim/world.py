@@ -196,22 +196,30 @@ class SwingingDoor:
 class MovingBox:
     """A rectangular obstacle that moves: a trolley, a cart, a crate on a pallet jack.
 
-    ``centre_at`` is either a function of time (s) returning the centre (x, y) in m, or
-    ``(t, x, y)`` waypoints followed linearly (holding the end positions outside their time
-    range). ``size`` is (length along ``yaw``, width across it) in m; ``yaw`` is the box's
-    heading in rad, constant or a function of time.
+    Give the centre either as ``centre_at``, a function of time (s) returning (x, y) in m, or
+    as ``waypoints``, ``(t, x, y)`` entries followed linearly (the position holds outside
+    their time range); ``centre_at`` also accepts such waypoints. ``size`` is (length along
+    ``yaw``, width across it) in m; ``yaw`` is the box's heading in rad, a constant or a
+    function of time.
     """
 
-    centre_at: Callable[[float], Point] | Sequence[tuple[float, float, float]]
+    centre_at: Callable[[float], Point] | Sequence[tuple[float, float, float]] | None = None
     size: tuple[float, float] = (0.8, 0.5)
     yaw: float | Callable[[float], float] = 0.0
     name: str = 'box'
     smooth: bool = False
     absorbs_db: float = 0.0
+    waypoints: Sequence[tuple[float, float, float]] | None = None
 
     def __post_init__(self) -> None:
-        """Check the size and, when given as waypoints, the path."""
-        if not callable(self.centre_at):
+        """Check that exactly one of centre_at and waypoints is given, the path and the size."""
+        if (self.centre_at is None) == (self.waypoints is None):
+            raise ValueError('give the box centre as exactly one of centre_at or waypoints: '
+                             f'centre_at={self.centre_at!r}, waypoints={self.waypoints!r}')
+        if self.waypoints is not None:
+            _check_waypoints(self.waypoints)
+        elif not callable(self.centre_at):
+            assert self.centre_at is not None
             _check_waypoints(self.centre_at)
         length, width = _point('size', self.size)
         if not (length > 0.0 and width > 0.0):
@@ -219,10 +227,12 @@ class MovingBox:
 
     def centre(self, t: float) -> Point:
         """Return the box centre at time ``t`` s, m."""
-        if callable(self.centre_at):
-            x, y = self.centre_at(t)
+        where = self.waypoints if self.waypoints is not None else self.centre_at
+        if callable(where):
+            x, y = where(t)
             return (float(x), float(y))
-        return interpolate_waypoints(self.centre_at, t)
+        assert where is not None
+        return interpolate_waypoints(where, t)
 
     def corners(self, t: float) -> tuple[Point, Point, Point, Point]:
         """Return the four corners at time ``t`` s, counter-clockwise, m."""
@@ -309,9 +319,9 @@ class World:
     ``walls`` may hold discs too (posts, pillars): anything that does not move.
     """
 
-    walls: list[Wall | Disc] = field(default_factory=list)
-    movers: list[Mover] = field(default_factory=list)
-    air: list[AirZone] = field(default_factory=list)
+    walls: Sequence[Wall | Disc] = field(default_factory=list)
+    movers: Sequence[Mover] = field(default_factory=list)
+    air: Sequence[AirZone] = field(default_factory=list)
     default_air_c: float = 21.0
 
     def shapes_at(self, t: float) -> list[Wall | Disc]:
@@ -322,7 +332,7 @@ class World:
         return shapes
 
     def air_temperature(self, x: float, y: float) -> float:
-        """Return the air temperature at (x, y) m, degC: the first zone holding it, else default."""
+        """Return the air temperature at (x, y) m, degC: the first zone holding it, or default."""
         for zone in self.air:
             if zone.contains(x, y):
                 return float(zone.temperature_c)

@@ -25,6 +25,17 @@ TIMEOUT = 2 * 4.0 / C20  # echo timeout at the default max_range 4.0 m: one slot
 CYCLE = 2 * TIMEOUT  # two sensors, one slot each
 
 
+def travel(r):
+    """Free travel to the arc of a reading r for the test robot's edge-mounted sensors.
+
+    The nearest echo lies on the arc of radius r across the cone; moving along the beam axis,
+    the footprint's edge first reaches the arc's ends at +/- fov/2: r*cos(fov/2) (plane
+    geometry; valid while r*sin(fov/2) <= the 0.3 m half width, i.e. r <= 1.51 m).
+    """
+    assert r * math.sin(0.2) <= 0.3
+    return r * math.cos(0.2)
+
+
 def v_max(free, latency, decel, margin):
     """Closed form of reference.md sec. 5: v = -aT + sqrt((aT)^2 + 2ad), 0 when d <= 0."""
     d = free - margin
@@ -84,6 +95,37 @@ class Run:
         return float(np.max(np.diff(stamps))) - TIMEOUT + TIMEOUT
 
 
+def test_side_wall_seen_at_the_cone_edge_does_not_limit_forward_travel():
+    """A sensor angled off the path limits travel only by the part of its arc in the path."""
+    params = dict(SCENARIO)
+    params.update({'sensor_names': ['ahead', 'slant'], 'sensors.slant.x': 0.5,
+                   'sensors.slant.y': 0.25, 'sensors.slant.yaw': 0.35})
+    config = make_config(params)
+
+    def limit_with(slant_range):
+        m = Monitor(config)
+        for k in range(5):
+            t = 0.05 * k
+            m.on_odometry(OdometrySample(t, 0.3, 0.0, 0.0, t))
+            m.on_range(RangeReading('ahead', t, math.inf, t))
+            m.on_range(RangeReading('slant', t + 0.001, slant_range, t + 0.001))
+        return m.tick(0.201)
+
+    assert 'slant' in Monitor(config).covering(0.0)  # its cone crosses the path near the mount
+    # 0.9 m: the arc spans y = 0.25 + 0.9 sin(0.15..0.55) = 0.38..0.72 m, all beside the
+    # 0.3 m half-width path (plane geometry): a side wall, no limit
+    far = limit_with(0.9)
+    assert far.target_mps == 1.5
+    # 0.2 m: the arc enters the path (y <= 0.3 m) up to sin(phi) = 0.05/0.2 from the sensor's
+    # x axis; the furthest such point is nearest in travel: 0.2 cos(asin(0.25)) = 0.1936 m
+    # ahead of the front edge (plane geometry; the arc is sampled every 0.05 rad)
+    near = limit_with(0.2)
+    assert near.limiting_sensor == 'slant'
+    free = 0.2 * math.cos(math.asin(0.25))
+    latency = float(near.reason.split('latency ')[1].split(' s')[0])  # as the engine used it
+    assert near.target_mps == pytest.approx(v_max(free, latency, 0.7, 0.1), abs=0.01)
+
+
 def test_clear_path_gives_max_speed():
     """Nothing in range on either side: the limit is limits.max_speed."""
     run = Run()
@@ -100,8 +142,7 @@ def test_obstacle_ahead_gives_the_closed_form_limit():
     d = run.decision
     last = run.stamps['ahead'][-1]
     latency = run.measured_latency('ahead') + 0.12 + (d.time_s - last)
-    # the sensor sits on the front edge facing out: edge offset 0, free = range
-    assert d.limit_mps == pytest.approx(v_max(1.2, latency, 0.7, 0.1), rel=1e-9)
+    assert d.limit_mps == pytest.approx(v_max(travel(1.2), latency, 0.7, 0.1), rel=1e-9)
     assert d.limiting_sensor == 'ahead'
     assert d.limit_mps < 1.5
 
@@ -115,7 +156,7 @@ def test_before_periods_are_measured_the_configured_latency_is_used():
     run.m.on_range(RangeReading('ahead', stamp, r, stamp))
     d = run.m.tick(stamp)
     latency = CYCLE - TIMEOUT + TIMEOUT + 0.12  # design.md detection_latency + reaction
-    assert d.target_mps == pytest.approx(v_max(r, latency, 0.7, 0.1), rel=1e-9)
+    assert d.target_mps == pytest.approx(v_max(travel(r), latency, 0.7, 0.1), rel=1e-9)
 
 
 def test_reverse_travel_is_limited_by_the_rear_sensor():
@@ -126,7 +167,8 @@ def test_reverse_travel_is_limited_by_the_rear_sensor():
     assert forward.covering == ('ahead',) and backward.covering == ('behind',)
     assert backward.heading_rad == pytest.approx(math.pi)
     latency = run.measured_latency('behind') + 0.12 + (backward.time_s - run.stamps['behind'][-1])
-    assert backward.limit_mps == pytest.approx(v_max(1.5, latency, 0.7, 0.1), rel=1e-9)
+    assert backward.limit_mps == pytest.approx(v_max(travel(1.5), latency, 0.7, 0.1),
+                                               rel=1e-9)
     assert forward.limit_mps < backward.limit_mps
 
 
@@ -176,7 +218,7 @@ def test_obstacle_lost_into_no_echo_is_remembered_and_dead_reckoned():
     last_odom = run.t - 0.02
     memory = r0 - speed * (last_odom - t0)  # constant speed dead reckoning
     latency = run.measured_latency('ahead') + 0.12 + (d.time_s - run.stamps['ahead'][-1])
-    assert d.limit_mps == pytest.approx(v_max(memory, latency, 0.7, 0.1), rel=1e-6)
+    assert d.limit_mps == pytest.approx(v_max(travel(memory), latency, 0.7, 0.1), rel=1e-6)
     assert '(remembered)' in d.reason
     # a trusted echo far away clears the memory
     d = run.drive(0.5, vx=speed, ahead=lambda t: 3.5)
@@ -197,6 +239,17 @@ def test_obstacle_lost_into_the_blind_zone_keeps_the_limit_at_zero():
     assert '(remembered)' in d.reason
     kinds = [e.kind for e in run.m.finish() if e.sensor == 'ahead']
     assert 'blind' in kinds
+
+
+def test_memory_hold_releases_a_lost_obstacle_after_its_time():
+    """With limits.memory_hold set, the remembered obstacle is dropped after that long."""
+    run = Run({'limits.memory_hold': 1.0})
+    speed = 0.25
+    run.drive(1.2, vx=speed, ahead=lambda t: 1.0 - speed * t)
+    held = run.drive(0.5, vx=0.0, ahead=lambda t: math.inf)
+    assert '(remembered)' in held.reason
+    released = run.drive(1.0, vx=0.0, ahead=lambda t: math.inf)
+    assert '(remembered)' not in released.reason
 
 
 def test_no_echo_without_an_approach_is_an_open_path():
@@ -338,7 +391,7 @@ def test_reconfigure_takes_new_braking_at_once_and_keeps_history():
     d = run.m.tick(run.t)
     last = run.stamps['ahead'][-1]
     latency = run.measured_latency('ahead') + 0.12 + (d.time_s - last)
-    assert d.limit_mps == pytest.approx(v_max(1.2, latency, 0.35, 0.1), rel=1e-9)
+    assert d.limit_mps == pytest.approx(v_max(travel(1.2), latency, 0.35, 0.1), rel=1e-9)
     assert d.limit_mps < before
     assert run.m.status('ahead', run.t).counts['ok'] == counts
 

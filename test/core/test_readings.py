@@ -234,3 +234,13 @@ def test_late_flag_applies_to_every_usable_verdict():
     assert not on_time.late
     stale = v.check(reading(1.0, stamp=4.0, arrival=4.5))
     assert stale.verdict is Verdict.STALE and not stale.late
+
+
+def test_unchanged_reading_while_driving_past_at_an_angle_is_fine():
+    """A beam 0.35 rad off the path, fov 0.4: forward travel lies outside the cone, so a side
+    wall parallel to the path may hold the reading (plane geometry)."""
+    v = validator({'sensors.ahead.yaw': 0.35, 'sonar.field_of_view': 0.4,
+                   'sonar.stuck_count': 5, 'sonar.stuck_travel': 0.2})
+    verdicts = [v.check(reading(1.48, stamp=1.0 + 0.05 * i), Motion(0.1 * i, 0.0, 0.0)).verdict
+                for i in range(10)]
+    assert set(verdicts) == {Verdict.OK}

@@ -190,8 +190,9 @@ def test_numbers_are_fixed_point_and_unknowns_are_spelled_out(config):
     ahead = values(status['sonar_guard: ahead'])
     behind = values(status['sonar_guard: behind'])
     assert ahead['last_range_m'] == '1.250'
-    # the sensor sits on the front edge facing out: free distance = range (test robot)
-    assert ahead['free_distance_m'] == '1.250'
+    # front-edge sensor, half fov 0.2 rad: the footprint first reaches the reading's arc at
+    # its ends, 1.25 cos(0.2) = 1.225 m ahead (plane geometry)
+    assert ahead['free_distance_m'] == f'{1.25 * math.cos(0.2):.3f}'
     assert ahead['period_median_s'] == '0.040'  # one reading every 0.04 s (input)
     assert ahead['remembered_m'] == 'none'
     assert behind['last_range_m'] == 'nan'

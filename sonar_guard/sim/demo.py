@@ -1,0 +1,162 @@
+"""The demo: an invented linen cart on an invented hotel service corridor, simulated and checked.
+
+Every number here is made up for the demo. The cart is the robot of config/sonar_guard.yaml
+(eight sonars, 1.1 m x 0.62 m). It drives along a 2 m wide service corridor and meets, in
+order: a room door that swings open into its path, a housekeeping trolley pushed across in
+front of it, a glass partition standing at a steep angle (smooth: the pulse glances off), a
+person who steps right up to the front of the cart, and a cold loading dock where its sensors
+(which assume 21 degC) read long; in the dock the cart is pushed faster than it may go.
+"""
+from __future__ import annotations
+
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+import math
+from pathlib import Path
+from typing import Any
+
+from sonar_guard.core.config import Config
+from sonar_guard.core.monitor import Monitor
+from sonar_guard.offline.bagwrite import write_bag
+from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
+from sonar_guard.sim.drive import Path as DrivePath
+from sonar_guard.sim.drive import Run, SpeedProfile
+from sonar_guard.sim.sonar import SonarPhysics
+from sonar_guard.sim.world import AirZone, Disc, MovingBox, SwingingDoor, Walker, Wall, World
+
+__all__ = ['DEMO_DURATION_S', 'PLANNED', 'Planned', 'corridor_run', 'corridor_world',
+           'match_planned', 'write_demo_bag']
+
+DEMO_DURATION_S = 75.0
+START_TIME_S = 1_767_225_600.0  # bag time of the start (an invented date)
+PUSHED = (45.0, 52.0)  # m along the corridor: in the dock the cart is pushed past its limit
+HALF_WIDTH = 1.0  # corridor walls at y = +/- 1 m
+
+
+@dataclass(frozen=True, slots=True)
+class Planned:
+    """A planned happening of the scenario, the findings that show it, and when (s from start)."""
+
+    what: str
+    kinds: tuple[str, ...]
+    start: float
+    end: float
+
+
+# Windows follow from the world and the cart's speed profile below (checked by the tests).
+PLANNED: tuple[Planned, ...] = (
+    Planned('room door swings open into the corridor: the cart waits',
+            ('no_echo', 'jump'), 8.0, 18.0),
+    Planned('trolley pushed across in front of the cart', ('jump', 'no_echo'), 23.0, 32.0),
+    Planned('glass partition at a steep angle: the echo glances off', ('no_echo',), 33.0,
+            45.0),
+    Planned('person steps right up to the front of the cart (into the ring-down range)',
+            ('no_echo', 'blind'), 52.0, 64.0),
+    Planned('cold loading dock: sensors read long, the cart is pushed faster than allowed',
+            ('overspeed',), 64.0, 75.0),
+)
+
+def corridor_world() -> World:
+    """Return the corridor with its door, trolley, glass partition, person and cold dock."""
+    walls = [
+        Wall((-2.0, HALF_WIDTH), (60.0, HALF_WIDTH), name='left wall'),
+        Wall((-2.0, -HALF_WIDTH), (60.0, -HALF_WIDTH), name='right wall'),
+        Wall((-2.0, -HALF_WIDTH), (-2.0, HALF_WIDTH), name='start wall'),
+        Wall((60.0, -HALF_WIDTH), (60.0, HALF_WIDTH), name='end wall'),
+        # a glass partition standing out from the left wall at a steep angle
+        Wall((26.0, HALF_WIDTH), (29.0, 0.45), smooth=True, name='glass partition'),
+    ]
+    door = SwingingDoor(hinge=(11.0, HALF_WIDTH), length=0.85, closed_angle=0.0,
+                        open_angle=-math.pi / 2, t_open_start=8.0, t_open_end=9.2,
+                        name='room door')
+    trolley = MovingBox(waypoints=[(24.0, 19.8, 1.6), (27.5, 19.8, -1.6)], size=(0.7, 0.5),
+                        yaw=0.0, name='trolley')
+    person = Walker(waypoints=[(54.0, 39.4, -0.9), (56.5, 38.7, -0.05), (59.0, 38.7, -0.05),
+                               (60.0, 38.35, -0.05), (62.5, 38.35, -0.05), (64.5, 39.6, -0.9)],
+                    name='person')
+    dock = AirZone(polygon=[(44.0, -6.0), (56.0, -6.0), (56.0, 6.0), (44.0, 6.0)],
+                   temperature_c=2.0)
+    return World(walls=walls, movers=[_DoorThatCloses(door), trolley, person], air=[dock],
+                 default_air_c=21.0)
+
+
+@dataclass(frozen=True)
+class _DoorThatCloses:
+    """The room door opens, stays open while the cart waits, and is closed again."""
+
+    door: SwingingDoor
+    t_close_start: float = 13.0
+    t_close_end: float = 14.0
+
+    def at(self, t: float) -> Sequence[Wall | Disc]:
+        if t <= self.t_close_start:
+            return self.door.at(t)
+        # mirror time: closing plays the opening backwards
+        back = self.door.t_open_end - (t - self.t_close_start) * (
+            (self.door.t_open_end - self.door.t_open_start)
+            / (self.t_close_end - self.t_close_start))
+        return self.door.at(max(back, self.door.t_open_start - 1.0))
+
+
+class _ObeyingDriver:
+    """The cart's controller: it keeps to the limit of a Monitor fed with its own recording,
+    except while the attendant pushes it (then it goes as fast as the profile says)."""
+
+    def __init__(self, config: Config, start_time_s: float,
+                 pushed: tuple[float, float]) -> None:
+        self.monitor = Monitor(config)
+        self.start_time_s = start_time_s
+        self.pushed = pushed  # stretch of the path (m along x) where the attendant pushes
+        self.x = 0.0
+        self.names = {'/' + s.topic.lstrip('/'): s.name for s in config.sensors}
+        self.odom = '/' + config.odom_topic.lstrip('/')
+
+    def watch(self, records: Iterator[tuple[str, str, float, Any]]
+              ) -> Iterator[tuple[str, str, float, Any]]:
+        """Pass records through, feeding the monitor on the way."""
+        for record in records:
+            topic, _, t, msg = record
+            name = self.names.get(topic)
+            if name is not None:
+                self.monitor.on_range(range_to_reading(name, msg, t))
+            elif topic == self.odom:
+                self.monitor.on_odometry(odometry_to_sample(msg, t))
+                self.x = float(msg.pose.pose.position.x)
+            yield record
+
+    def cap(self, t: float, speed: float) -> float:
+        """Return the largest speed the cart keeps to at simulation time t, m/s."""
+        limit = self.monitor.tick(self.start_time_s + t).limit_mps
+        if self.pushed[0] <= self.x < self.pushed[1]:
+            return math.inf
+        return limit
+
+
+def corridor_run(config: Config, *, seed: int = 7, physics: SonarPhysics | None = None,
+                 start_time_s: float = START_TIME_S) -> tuple[Run, _ObeyingDriver]:
+    """Return the cart's run along the corridor and the driver that keeps it to the limit."""
+    path = DrivePath(waypoints=[(0.0, 0.0), (58.0, 0.0)])
+    profile = SpeedProfile(points=[(0.0, 0.9), (44.0, 0.9), (44.5, 1.5), (51.0, 1.5),
+                                   (52.0, 0.5), (58.0, 0.5)])
+    driver = _ObeyingDriver(config, start_time_s, PUSHED)
+    run = Run(corridor_world(), config, path, profile, physics or SonarPhysics(), seed=seed,
+              speed_cap=driver.cap)
+    return run, driver
+
+
+def match_planned(events: Sequence[Any], t0: float) -> list[tuple[Planned, list[Any]]]:
+    """Pair each planned happening with the findings of its kinds inside its window."""
+    out = []
+    for p in PLANNED:
+        hits = [e for e in events if e.kind in p.kinds
+                and p.start <= e.t_start - t0 <= p.end]
+        out.append((p, hits))
+    return out
+
+
+def write_demo_bag(path: Path, config: Config, *, duration_s: float = DEMO_DURATION_S,
+                   seed: int = 7) -> Path:
+    """Simulate the corridor run (the cart obeying the limit) and write it as MCAP."""
+    run, driver = corridor_run(config, seed=seed)
+    records = driver.watch(run.records(duration_s, start_time_s=START_TIME_S))
+    return write_bag(path, records, storage='mcap')
