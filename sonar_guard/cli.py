@@ -180,22 +180,27 @@ def cmd_demo(args: argparse.Namespace) -> int:
     write_demo_bag(bag, config, duration_s=duration, seed=args.seed)
     print(f'checking the recording {bag} ...', flush=True)
     run = check_many([str(bag)], config, config_source='the demo cart (config/sonar_guard.yaml)')
+    lines = []
+    for result in run.results:  # say in the report which finding shows which happening
+        for planned, hits in match_planned(result.events, result.t_start):
+            if planned.start > duration:
+                continue
+            found = ', '.join(sorted({f'{e.kind} ({e.sensor or "robot"})' for e in hits}))
+            line = (f'planned {planned.start:.0f}-{planned.end:.0f} s: {planned.what}: '
+                    + (f'found: {found}' if hits else 'NOT FOUND'))
+            result.notes.append(line)
+            lines.append(line)
     report = report_json(run)
     json_path = write_text_atomic(out / 'report.json',
                                   json.dumps(report, indent=2, allow_nan=False) + '\n')
     html_path = write_text_atomic(out / 'report.html',
                                   render_html(run.results, title='sonar_guard demo: linen '
                                               'cart in a hotel service corridor'))
-    result = run.results[0] if run.results else None
-    if result is not None:
+    if lines:
         print('\nplanned happenings and what the check found:')
-        for planned, hits in match_planned(result.events, result.t_start):
-            if planned.start > duration:
-                continue
-            found = ', '.join(sorted({f'{e.kind} ({e.sensor or "robot"})' for e in hits}))
-            mark = 'found' if hits else 'NOT FOUND'
-            print(f'  {planned.start:5.1f}-{planned.end:5.1f} s  {planned.what}: {mark}'
-                  + (f': {found}' if found else ''))
+        for line in lines:
+            print('  ' + line)
+    for result in run.results:
         kinds: dict[str, int] = {}
         for e in result.events:
             kinds[e.kind] = kinds.get(e.kind, 0) + 1
