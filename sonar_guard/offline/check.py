@@ -15,7 +15,7 @@ from typing import Any
 from sonar_guard import SAFETY_CAUTION
 from sonar_guard.core.config import Config
 from sonar_guard.core.monitor import EVENT_KINDS
-from sonar_guard.errors import RecordingError
+from sonar_guard.errors import ConfigError, RecordingError
 from sonar_guard.offline.replay import check_bag
 from sonar_guard.offline.results import BagResult
 
@@ -68,8 +68,8 @@ def _check_one(args: tuple[str, Config | None, str]) -> BagResult | Unusable:
     path, config, source = args
     try:
         return check_bag(path, config, config_source=source)
-    except RecordingError as err:
-        return Unusable(path, str(err))
+    except (RecordingError, ConfigError) as err:  # ConfigError: limits found in the messages
+        return Unusable(path, ' '.join(str(err).split()))
 
 
 def check_many(paths: Sequence[str], config: Config | None, *, config_source: str = '',
@@ -90,8 +90,8 @@ def check_many(paths: Sequence[str], config: Config | None, *, config_source: st
             hook = (lambda f, p=path: progress(p, f)) if progress is not None else None
             try:
                 outcomes.append(check_bag(path, cfg, config_source=source, progress=hook))
-            except RecordingError as err:
-                outcomes.append(Unusable(path, str(err)))
+            except (RecordingError, ConfigError) as err:
+                outcomes.append(Unusable(path, ' '.join(str(err).split())))
     for outcome in outcomes:
         if isinstance(outcome, Unusable):
             run.unusable.append(outcome)

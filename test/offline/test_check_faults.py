@@ -187,3 +187,15 @@ def test_decoded_ranges_match_what_was_written(recordings):
         assert tr == pytest.approx(tw, abs=1e-9)
         assert (math.isinf(rw) and math.isinf(rr)) or rr == pytest.approx(rw, rel=1e-6)
 
+
+
+def test_recorded_limits_that_make_no_sense_are_unusable_not_a_crash(tmp_path, capsys):
+    """Without --params, Range limits come from the messages; nonsense there is exit 2."""
+    from sonar_guard.offline.bagwrite import range_msg, write_bag
+    records = [('/sonar/odd', 'sensor_msgs/msg/Range', 1.0 + 0.05 * k,
+                range_msg(1.0 + 0.05 * k, 'odd', 1.0, min_range=5.0, max_range=1.0,
+                          field_of_view=0.4)) for k in range(5)]
+    bag = write_bag(tmp_path / 'odd', records, storage='mcap')
+    code, report = run_json(capsys, bag)
+    assert code == 2
+    assert report['summary']['unusable'][0]['reason']
