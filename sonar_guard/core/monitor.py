@@ -320,7 +320,7 @@ class Monitor:
                           f'arrived {reading.arrival_s - t:.3f} s after its stamp '
                           f'> late_after {st.config.late_after_s:g} s')
             keep.add('late')
-        if v is Verdict.JUMP:
+        if v is Verdict.JUMP:  # only finite stamps get this far
             self._closed.append(Event('jump', name, t, t, check.reason))
         self._close_other_stretches(name, keep=tuple(keep))
         return check
@@ -575,6 +575,8 @@ class Monitor:
         return self.pop_events()
 
     def _stretch(self, sensor: str | None, kind: str, t: float, detail: str) -> None:
+        if not math.isfinite(t):  # a broken stamp: place the finding at the engine's clock
+            t = self._now if math.isfinite(self._now) else 0.0
         ev = self._open.get((kind, sensor))
         if ev is None:
             self._open[(kind, sensor)] = _OpenEvent(kind, sensor, t, detail)
@@ -584,7 +586,8 @@ class Monitor:
     def _close(self, sensor: str | None, kind: str, t_end: float | None = None) -> None:
         ev = self._open.pop((kind, sensor), None)
         if ev is not None:
-            end = ev.t_last if t_end is None else max(ev.t_last, t_end)
+            end = ev.t_last if t_end is None or not math.isfinite(t_end) else max(ev.t_last,
+                                                                                   t_end)
             self._closed.append(Event(kind, sensor, ev.t_start, end, ev.detail))
 
     def _close_other_stretches(self, sensor: str, keep: Iterable[str]) -> None:
