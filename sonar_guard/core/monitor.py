@@ -146,11 +146,9 @@ class _OpenEvent:
 class _SensorState:
     """Everything the engine remembers about one sensor."""
 
-    __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'free_m',
-                 'free_stamp', 'last_ok_range', 'memory_m', 'memory_since', 'memory_stamp',
-                 'periods', 'timeout_s',
-                 'tables',
-                 'heard_stamp', 'validator')
+    __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'heard_stamp',
+                 'last_ok_range', 'memory_m', 'memory_since', 'memory_stamp', 'periods',
+                 'seen_m', 'seen_stamp', 'tables', 'timeout_s', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.tables: dict[float, FloatArray] = {}  # heading -> travel per TABLE_STEP_M of range
@@ -162,11 +160,9 @@ class _SensorState:
 
     def configure(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.config = config
-        self.tables = {}
-        mount = mount_of(config)
-        self.axis = beam_axis(mount)
+        self.axis = beam_axis(mount_of(config))
         self.footprint = footprint
-        self.tables = {}  # heading -> travel per TABLE_STEP_M of range
+        self.tables = {}  # the mount may have moved: travel tables are rebuilt on demand
         self.timeout_s = echo_timeout(config.max_range_m, config.air_temperature_c)
         self.validator.configure(config, stale_after_s=stale_after_s)
 
@@ -175,15 +171,15 @@ class _SensorState:
         self.periods.reset()
         self.check: ReadingCheck | None = None
         self.heard_stamp: float | None = None
-        self.free_m = math.nan
-        self.free_stamp = math.nan
+        self.seen_m = math.nan  # effective range of the last usable reading, m
+        self.seen_stamp = math.nan
         self.last_ok_range: float | None = None
         self.closing = False
         self.memory_m: float | None = None
         self.memory_stamp = math.nan
         self.memory_since = math.nan  # when the obstacle's echo was lost
 
-    def free_of(self, range_m: float) -> float:
+    def clip_range(self, range_m: float) -> float:
         """Clip a range to what the sensor can report (its effective range, m)."""
         return max(0.0, min(range_m, self.config.max_range_m))
 
@@ -338,17 +334,17 @@ class Monitor:
             st.closing = ((previous is not None and previous - r > cfg.resolution_m)
                           or along > STILL_SPEED_MPS)
             st.last_ok_range = r
-            st.free_m, st.free_stamp = st.free_of(r), t
+            st.seen_m, st.seen_stamp = st.clip_range(r), t
             st.memory_m = None
         elif v is Verdict.JUMP:
-            new_free = st.free_of(r)
-            if not math.isfinite(st.free_m) or new_free < st.free_m:
-                st.free_m, st.free_stamp = new_free, t
+            new_free = st.clip_range(r)
+            if not math.isfinite(st.seen_m) or new_free < st.seen_m:
+                st.seen_m, st.seen_stamp = new_free, t
             # else: keep the nearer, older range with its own (older) stamp
             st.last_ok_range = r
             st.closing = False
         elif v is Verdict.BLIND:
-            st.free_m, st.free_stamp = 0.0, t
+            st.seen_m, st.seen_stamp = 0.0, t
             st.memory_m, st.memory_stamp, st.memory_since = 0.0, t, t
             st.closing = True
         elif v is Verdict.NO_ECHO:
@@ -356,14 +352,14 @@ class Monitor:
             if st.memory_m is None and previous_verdict_closing:
                 # carry the last free distance forward to now if the robot kept closing in
                 closing_mps = max(0.0, self._speed_along(st))
-                st.memory_m = max(0.0, st.free_m - closing_mps * max(0.0, t - st.free_stamp))
+                st.memory_m = max(0.0, st.seen_m - closing_mps * max(0.0, t - st.seen_stamp))
                 st.memory_stamp = st.memory_since = t
                 self._stretch(cfg.name, 'no_echo', t,
                               f'echo lost at {st.last_ok_range:.3f} m while closing in; '
                               f'kept at {st.memory_m:.2f} m until a trusted echo')
             st.closing = False
             st.last_ok_range = None
-            st.free_m, st.free_stamp = st.free_of(cfg.max_range_m), t
+            st.seen_m, st.seen_stamp = st.clip_range(cfg.max_range_m), t
 
     def _speed_along(self, st: _SensorState) -> float:
         if self._odom is None:
@@ -493,10 +489,10 @@ class Monitor:
                     why = 'silent' if silent else 'stuck'
                     best, reason, limiting = fallback, f'{name} {why}', name
                 continue
-            seen = st.free_m if st.memory_m is None else min(st.free_m, st.memory_m)
+            seen = st.seen_m if st.memory_m is None else min(st.seen_m, st.memory_m)
             free = st.travel(seen, heading)
             latency = (self.detection_latency_s(name) + robot.reaction_time_s
-                       + max(0.0, now - st.free_stamp))
+                       + max(0.0, now - st.seen_stamp))
             speed = max_safe_speed(free, latency, robot.decel_mps2, lim.margin_m)
             if speed < best:
                 best, limiting = speed, name
@@ -549,8 +545,8 @@ class Monitor:
             reason='no reading yet' if check is None else check.reason,
             last_range_m=math.nan if check is None else check.range_m,
             silent_for_s=silent_for, silent=silent_for > lim.stale_after_s,
-            free_distance_m=(st.travel(st.free_m, self._canonical(self._heading))
-                             if math.isfinite(st.free_m) else math.nan),
+            free_distance_m=(st.travel(st.seen_m, self._canonical(self._heading))
+                             if math.isfinite(st.seen_m) else math.nan),
             memory_m=st.memory_m,
             latency_s=self.detection_latency_s(name), period_median_s=st.periods.median_s,
             period_worst_s=st.periods.worst_s, counts=dict(st.counts))
