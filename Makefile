@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: venv test demo lint clean
+.PHONY: venv test demo bench lint clean
 
 venv: $(STAMP)
 
@@ -22,8 +22,11 @@ test: $(STAMP)
 demo: $(STAMP)
 	$(BIN)/sonar-guard demo --out demo_out
 
+bench: $(STAMP)
+	$(BIN)/python bench/run.py
+
 lint: $(STAMP)
-	$(BIN)/python -m ruff check sonar_guard test launch setup.py
+	$(BIN)/python -m ruff check sonar_guard test launch bench setup.py
 
 clean:
 	rm -rf $(VENV) build install log *.egg-info .pytest_cache .hypothesis

@@ -28,6 +28,7 @@ from sonar_guard.core.arguments import non_negative, real
 __all__ = [
     'max_safe_speed',
     'max_safe_speed_array',
+    'max_safe_speed_unchecked',
     'stopping_distance',
 ]
 
@@ -89,6 +90,19 @@ def max_safe_speed(free_distance_m: float, latency_s: float, decel: float,
     if math.isinf(room):
         return math.inf
     return _root(room, latency, a)
+
+
+def max_safe_speed_unchecked(room_m: float, latency_s: float, decel: float) -> float:
+    """Return :func:`max_safe_speed` for room = free distance - margin, m/s, without checks.
+
+    For the engine's per-reading path, whose inputs come from a validated configuration and
+    validated readings: ``room_m`` may be <= 0 or +inf, ``latency_s`` >= 0, ``decel`` > 0.
+    """
+    if room_m <= 0.0:
+        return 0.0
+    if room_m == math.inf:
+        return math.inf
+    return _root(room_m, latency_s, decel)
 
 
 def max_safe_speed_array(free_distance_m: npt.ArrayLike,

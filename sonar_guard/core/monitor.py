@@ -33,7 +33,7 @@ from typing import Any
 import numpy as np
 
 from sonar_guard.core.acoustics import echo_timeout
-from sonar_guard.core.braking import max_safe_speed
+from sonar_guard.core.braking import max_safe_speed_unchecked
 from sonar_guard.core.config import Config, SensorConfig
 from sonar_guard.core.geometry import (
     FloatArray,
@@ -147,11 +147,14 @@ class _SensorState:
     """Everything the engine remembers about one sensor."""
 
     __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'heard_stamp',
-                 'last_ok_range', 'memory_m', 'memory_since', 'memory_stamp', 'periods',
-                 'seen_m', 'seen_stamp', 'tables', 'timeout_s', 'validator')
+                 'configured_latency_s', 'last_ok_range', 'memory_m', 'memory_since',
+                 'memory_stamp', 'periods', 'seen_m', 'seen_stamp', 'slot_s', 'tables',
+                 'timeout_s', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.tables: dict[float, FloatArray] = {}  # heading -> travel per TABLE_STEP_M of range
+        self.slot_s = 0.0  # length of this sensor's slot, s (set from the schedule)
+        self.configured_latency_s = 0.0  # worst-case detection latency of the schedule, s
         self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
         self.configure(config, footprint, stale_after_s)
         self.periods = PeriodTracker()
@@ -222,6 +225,9 @@ class Monitor:
         """Compute everything that follows from the configuration alone."""
         self.config = config
         self.schedule = Schedule.from_config(config)
+        for name, st in self._states.items():  # cached: read for every covering sensor, every tick
+            st.slot_s = self.schedule.slot_duration_s(name)
+            st.configured_latency_s = self.schedule.timing(name).detection_latency_s
         count = HOLONOMIC_HEADINGS if config.robot.holonomic else 2
         self._headings = uniform_headings(count)
         table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint,
@@ -463,8 +469,8 @@ class Monitor:
         """Worst-case detection latency of one sensor: measured when possible, else configured."""
         st = self._states[name]
         if st.periods.ready:
-            return st.periods.worst_s - self.schedule.slot_duration_s(name) + st.timeout_s
-        return self.schedule.timing(name).detection_latency_s
+            return st.periods.worst_s - st.slot_s + st.timeout_s
+        return st.configured_latency_s
 
     def _bound(self, heading: float, now: float, odom_fresh: bool
                ) -> tuple[float, str, str | None, tuple[str, ...], bool]:
@@ -493,7 +499,8 @@ class Monitor:
             free = st.travel(seen, heading)
             latency = (self.detection_latency_s(name) + robot.reaction_time_s
                        + max(0.0, now - st.seen_stamp))
-            speed = max_safe_speed(free, latency, robot.decel_mps2, lim.margin_m)
+            # inputs are validated already: the unchecked form of max_safe_speed (hot path)
+            speed = max_safe_speed_unchecked(free - lim.margin_m, latency, robot.decel_mps2)
             if speed < best:
                 best, limiting = speed, name
                 remembered = ' (remembered)' if st.memory_m is not None else ''

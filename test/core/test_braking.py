@@ -341,3 +341,11 @@ def test_zero_decel_message_shows_rule_and_value() -> None:
     with pytest.raises(ValueError) as caught:
         stopping_distance(1.0, 0.1, 0.0)
     assert str(caught.value) == 'decel must be > 0 m/s^2: 0.0'  # design.md / brief wording
+
+
+@given(d=st.floats(-5.0, 50.0), t=st.floats(0.0, 2.0), a=st.floats(0.05, 10.0),
+       m=st.floats(0.0, 1.0))
+def test_unchecked_form_agrees_with_the_contract_function(d, t, a, m):
+    """The engine's hot-path form gives exactly what max_safe_speed gives."""
+    from sonar_guard.core.braking import max_safe_speed_unchecked
+    assert max_safe_speed_unchecked(d - m, t, a) == max_safe_speed(d, t, a, m)
