@@ -121,6 +121,7 @@ class Replayer:
         self._last_stamp: dict[str, float] = {}
         self._period = 1.0 / config.publish_rate_hz
         self._next_tick = math.nan
+        self._covering: frozenset[str] = frozenset(config.sensor_names)  # until the first tick
 
     def feed(self, topic: str, t_s: float, msg: Any) -> None:
         """Process one message logged at bag time ``t_s``."""
@@ -136,7 +137,10 @@ class Replayer:
         name = self.wiring.sensors.get(topic)
         if name is not None:
             self._reading(name, msg, t_s)
-            self._tick(t_s)
+            # as the live node, decide at once after a reading that can move the limit; other
+            # sensors' readings wait for the next publish tick (they cannot lower the limit)
+            if name in self._covering:
+                self._tick(t_s)
         elif topic == self.wiring.odometry:
             self.monitor.on_odometry(odometry_to_sample(msg, t_s))
 
@@ -160,6 +164,7 @@ class Replayer:
 
     def _tick(self, t_s: float) -> None:
         decision = self.monitor.tick(t_s)
+        self._covering = frozenset(decision.covering)
         if self.on_decision is not None:
             self.on_decision(decision)
         self.result.limit.add(t_s, decision.limit_mps)
