@@ -166,10 +166,11 @@ def estimated_firing_time(stamp_s: float, range_m: float, sensor: SensorConfig) 
 class ClashDetector:
     """Flag sensors of different slots whose pulses are in the air at the same time."""
 
-    __slots__ = ('_last_fire', '_sensors', '_timeouts')
+    __slots__ = ('_last_fire', '_max_range', '_slot', '_timeouts')
 
     def __init__(self, sensors: Sequence[SensorConfig]) -> None:
-        self._sensors = {s.name: s for s in sensors}
+        self._slot = {s.name: s.slot for s in sensors}
+        self._max_range = {s.name: s.max_range_m for s in sensors}
         self._timeouts = {s.name: echo_timeout(s.max_range_m, s.air_temperature_c)
                           for s in sensors}
         self._last_fire: dict[str, float] = {}
@@ -182,19 +183,22 @@ class ClashDetector:
         """Record a reading; return (other sensor, gap s) when it clashes with one, else None.
 
         Readings whose flight time is unknown (NaN, -inf, negative) neither raise nor count
-        toward a clash: their firing time cannot be estimated.
+        toward a clash: their firing time cannot be estimated. The firing time is estimated as
+        in :func:`estimated_firing_time` (inlined: this runs for every reading).
         """
         if math.isnan(range_m) or range_m < 0:
             return None
-        me = self._sensors[name]
-        fire = estimated_firing_time(stamp_s, range_m, me)
+        timeout = self._timeouts[name]
+        reach = self._max_range[name]
+        fire = stamp_s - (timeout if range_m >= reach else timeout * range_m / reach)
         self._last_fire[name] = fire
+        slot = self._slot[name]
         worst: tuple[str, float] | None = None
         for other, other_fire in self._last_fire.items():
-            if other == name or self._sensors[other].slot == me.slot:
+            if self._slot[other] == slot:  # includes this sensor itself
                 continue
             gap = fire - other_fire
-            first_timeout = self._timeouts[other] if gap >= 0 else self._timeouts[name]
+            first_timeout = self._timeouts[other] if gap >= 0 else timeout
             if abs(gap) < _CLASH_FRACTION * first_timeout:
                 if worst is None or abs(gap) < abs(worst[1]):
                     worst = (other, gap)

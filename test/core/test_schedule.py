@@ -109,6 +109,16 @@ class TestClash:
         clash.check('ahead', 1.0, math.inf)
         assert clash.check('behind', 1.0 + timeout, math.inf) is None
 
+    def test_clash_gap_is_the_difference_of_estimated_firing_times(self):
+        """The detector's inlined estimate agrees with estimated_firing_time for echoes."""
+        config = make_config({'sonar.air_temperature': 20.0})
+        clash = ClashDetector(config.sensors)
+        clash.check('ahead', 1.000, 1.2)
+        other, gap = clash.check('behind', 1.004, 0.8)
+        expected = (estimated_firing_time(1.004, 0.8, config.sensor('behind'))
+                    - estimated_firing_time(1.000, 1.2, config.sensor('ahead')))
+        assert other == 'ahead' and gap == pytest.approx(expected, rel=1e-12)
+
     def test_readings_without_a_flight_time_never_clash(self):
         """NaN and -inf say nothing about when the pulse left (REP 117 meanings)."""
         config = make_config({'sonar.air_temperature': 20.0})
