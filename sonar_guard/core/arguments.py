@@ -5,7 +5,7 @@ import math
 import numbers
 import operator
 
-__all__ = ['count_at_least', 'non_negative', 'real']
+__all__ = ['count_at_least', 'finite', 'non_negative', 'real']
 
 
 def real(name: str, value: object, rule: str) -> float:
@@ -36,4 +36,15 @@ def count_at_least(name: str, value: object, minimum: int) -> int:
         raise ValueError(f'{name} must be an integer >= {minimum}: {value!r}') from None
     if number < minimum:
         raise ValueError(f'{name} must be an integer >= {minimum}: {number}')
+    return number
+
+
+def finite(name: str, value: object) -> float:
+    """Return ``value`` as a finite float or raise ValueError naming ``name``."""
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise ValueError(f'{name} must be a number: {value!r}') from None
+    if not math.isfinite(number):
+        raise ValueError(f'{name} must be finite: {number}')
     return number

@@ -23,7 +23,7 @@ import numpy as np
 import numpy.typing as npt
 from transforms3d import affines, euler
 
-from sonar_guard.core.arguments import count_at_least
+from sonar_guard.core.arguments import count_at_least, finite
 
 __all__ = [
     'Footprint',
@@ -264,7 +264,7 @@ def covers_heading(mount: Mount, footprint: Footprint, heading_rad: float, *, ra
     the ray from it along ``-u`` meets the footprint and the point is not inside the footprint.
     A corridor that only a sliver of cone narrower than the ray spacing reaches can be missed.
     """
-    heading = _finite(heading_rad, 'heading_rad')
+    heading = finite('heading_rad', heading_rad)
     ray_count = count_at_least('rays', rays, 1)
     sample_count = count_at_least('samples', samples, 1)
     travel = np.array([math.cos(heading), math.sin(heading)])
@@ -312,7 +312,7 @@ def travel_to_arc(mount: Mount, footprint: Footprint, heading_rad: float,
     ``arc_points`` points spread evenly across the cone (both edges included); points inside
     the footprint give 0.
     """
-    heading = _finite(heading_rad, 'heading_rad')
+    heading = finite('heading_rad', heading_rad)
     ranges = np.atleast_1d(np.asarray(ranges_m, dtype=np.float64))
     if np.isnan(ranges).any():
         raise ValueError('ranges_m must not be NaN')
@@ -321,8 +321,8 @@ def travel_to_arc(mount: Mount, footprint: Footprint, heading_rad: float,
     angles = mount.yaw_rad + (np.linspace(-half, half, count) if count > 1 else np.zeros(1))
     rays = np.stack((np.cos(angles), np.sin(angles)), axis=-1)  # (A, 2)
     origin = np.array([mount.x_m, mount.y_m])
-    finite = np.where(np.isfinite(ranges), ranges, 0.0)
-    points = origin + finite[:, np.newaxis, np.newaxis] * rays[np.newaxis]  # (R, A, 2)
+    reach = np.where(np.isfinite(ranges), ranges, 0.0)
+    points = origin + reach[:, np.newaxis, np.newaxis] * rays[np.newaxis]  # (R, A, 2)
     flat = points.reshape(-1, 2)
     back = np.broadcast_to(-np.array([math.cos(heading), math.sin(heading)]), flat.shape)
     hits = _ray_boundary_hits(footprint.points, flat, back)  # (R*A, edges)
@@ -335,7 +335,7 @@ def travel_to_arc(mount: Mount, footprint: Footprint, heading_rad: float,
 
 def heading_index(heading_rad: float, count: int) -> int:
     """Return the index of the nearest of ``count`` evenly spaced headings from 0 rad (wraps)."""
-    heading = _finite(heading_rad, 'heading_rad')
+    heading = finite('heading_rad', heading_rad)
     n = count_at_least('count', count, 1)
     # A heading exactly halfway between two goes to the counter-clockwise one.
     return math.floor(heading / (_TAU / n) + 0.5) % n
@@ -354,7 +354,7 @@ def heading_name(heading_rad: float) -> str:
     The four axis names apply within 1e-6 rad; other headings are given in degrees in
     (-180, 180], counter-clockwise from forward (so 'heading -45 deg' is forward and right).
     """
-    heading = math.remainder(_finite(heading_rad, 'heading_rad'), _TAU)
+    heading = math.remainder(finite('heading_rad', heading_rad), _TAU)
     for axis, name in _AXIS_NAMES:
         if abs(math.remainder(heading - axis, _TAU)) <= _AXIS_NAME_TOL_RAD:
             return name
@@ -367,15 +367,6 @@ def heading_name(heading_rad: float) -> str:
 # --- private helpers -----------------------------------------------------------------------
 
 
-def _finite(value: float, name: str) -> float:
-    """Return ``value`` as a finite float or raise ValueError naming ``name``."""
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f'{name} must be a number: {value!r}') from None
-    if not math.isfinite(number):
-        raise ValueError(f'{name} must be finite: {number}')
-    return number
 
 
 

@@ -15,6 +15,8 @@ from dataclasses import dataclass, field
 import math
 from typing import Protocol
 
+from sonar_guard.core.arguments import finite
+
 __all__ = [
     'AirZone',
     'Disc',
@@ -29,19 +31,11 @@ __all__ = [
     'interpolate_waypoints',
 ]
 
+
 Point = tuple[float, float]
 """A point in the map frame, (x m, y m)."""
 
 
-def _finite(name: str, value: float) -> float:
-    """Return ``value`` as a float, or raise ValueError naming ``name`` when it is not finite."""
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f'{name} must be a finite number: {value!r}') from None
-    if not math.isfinite(number):
-        raise ValueError(f'{name} must be a finite number: {value!r}')
-    return number
 
 
 def _point(name: str, value: Sequence[float]) -> Point:
@@ -50,7 +44,7 @@ def _point(name: str, value: Sequence[float]) -> Point:
         x, y = value
     except (TypeError, ValueError):
         raise ValueError(f'{name} must be an (x, y) pair in m: {value!r}') from None
-    return (_finite(f'{name}.x', x), _finite(f'{name}.y', y))
+    return (finite(f'{name}.x', x), finite(f'{name}.y', y))
 
 
 @dataclass(frozen=True, slots=True)
@@ -76,7 +70,7 @@ class Wall:
             raise ValueError(f'a wall needs two distinct end points: a={a!r}, b={b!r}')
         object.__setattr__(self, 'a', a)  # lists in, hashable tuples kept
         object.__setattr__(self, 'b', b)
-        if not _finite('absorbs_db', self.absorbs_db) >= 0.0:
+        if not finite('absorbs_db', self.absorbs_db) >= 0.0:
             raise ValueError(f'absorbs_db must be >= 0 dB: {self.absorbs_db!r}')
 
 
@@ -92,9 +86,9 @@ class Disc:
     def __post_init__(self) -> None:
         """Check the centre is finite, the radius > 0 m and the loss >= 0 dB."""
         object.__setattr__(self, 'centre', _point('centre', self.centre))
-        if not _finite('radius', self.radius) > 0.0:
+        if not finite('radius', self.radius) > 0.0:
             raise ValueError(f'radius must be > 0 m: {self.radius!r}')
-        if not _finite('absorbs_db', self.absorbs_db) >= 0.0:
+        if not finite('absorbs_db', self.absorbs_db) >= 0.0:
             raise ValueError(f'absorbs_db must be >= 0 dB: {self.absorbs_db!r}')
 
 
@@ -136,9 +130,9 @@ def _check_waypoints(waypoints: Sequence[tuple[float, float, float]]) -> None:
     for i, w in enumerate(waypoints):
         if len(w) != 3:
             raise ValueError(f'waypoints[{i}] must be (t s, x m, y m): {w!r}')
-        t = _finite(f'waypoints[{i}].t', w[0])
-        _finite(f'waypoints[{i}].x', w[1])
-        _finite(f'waypoints[{i}].y', w[2])
+        t = finite(f'waypoints[{i}].t', w[0])
+        finite(f'waypoints[{i}].x', w[1])
+        finite(f'waypoints[{i}].y', w[2])
         if t <= last:
             raise ValueError(f'waypoints times must increase: waypoints[{i}].t = {t!r} s')
         last = t
@@ -165,12 +159,12 @@ class SwingingDoor:
     def __post_init__(self) -> None:
         """Check the hinge, length, angles and times."""
         _point('hinge', self.hinge)
-        if not _finite('length', self.length) > 0.0:
+        if not finite('length', self.length) > 0.0:
             raise ValueError(f'length must be > 0 m: {self.length!r}')
-        _finite('closed_angle', self.closed_angle)
-        _finite('open_angle', self.open_angle)
-        start = _finite('t_open_start', self.t_open_start)
-        if _finite('t_open_end', self.t_open_end) < start:
+        finite('closed_angle', self.closed_angle)
+        finite('open_angle', self.open_angle)
+        start = finite('t_open_start', self.t_open_start)
+        if finite('t_open_end', self.t_open_end) < start:
             raise ValueError(f't_open_end must be >= t_open_start ({start!r} s): '
                              f'{self.t_open_end!r}')
 
@@ -267,7 +261,7 @@ class Walker:
     def __post_init__(self) -> None:
         """Check the waypoints, radius and loss."""
         _check_waypoints(self.waypoints)
-        if not _finite('radius', self.radius) > 0.0:
+        if not finite('radius', self.radius) > 0.0:
             raise ValueError(f'radius must be > 0 m: {self.radius!r}')
 
     def position(self, t: float) -> Point:
@@ -294,7 +288,7 @@ class AirZone:
             raise ValueError(f'polygon must have at least 3 vertices: {self.polygon!r}')
         for i, p in enumerate(self.polygon):
             _point(f'polygon[{i}]', p)
-        temp = _finite('temperature_c', self.temperature_c)
+        temp = finite('temperature_c', self.temperature_c)
         if not -90.0 <= temp <= 150.0:
             raise ValueError(f'temperature_c must be in [-90, 150] degC: {temp!r}')
 
