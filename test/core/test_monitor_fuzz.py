@@ -88,3 +88,39 @@ def test_status_and_limit_for_any_heading_never_raise(ops, heading):
     assert 0.0 <= m.limit_for(heading, now) <= MAX
     for status in m.statuses(now):
         assert status.name in NAMES
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(st.one_of(st.floats(0.0, 6.0), st.floats(0.1, 1.0)), min_size=1, max_size=40))
+def test_limit_never_exceeds_what_the_latest_reading_allows(ranges):
+    """Safety invariant against an independent bound: driving forward with a reading every
+    50 ms, the limit after each reading of the front sensor is at most v_max(travel to that
+    reading, reaction time + the smallest possible detection latency)."""
+    m = Monitor(CONFIG)
+    robot, lim = CONFIG.robot, CONFIG.limits
+    half = CONFIG.sensor('ahead').field_of_view_rad / 2
+    c20 = 331.3 * math.sqrt(1 + 20.0 / 273.15)  # reference.md F1
+    timeout = 2 * CONFIG.sensor('ahead').max_range_m / c20
+    # detection latency: two one-timeout slots before the period is measured (design.md
+    # formula), the 50 ms period after: never less than the smaller of the two
+    latency = robot.reaction_time_s + min(2 * timeout, 0.05)
+    t = 1000.0
+    # 3 s of open space first so the limit has risen and a near reading drops it at once
+    for r in [math.inf] * 60 + list(ranges):
+        t += 0.05
+        m.on_odometry(OdometrySample(t, 0.3, 0.0, 0.0, t))
+        check = m.on_range(RangeReading('ahead', t, r, t))
+        limit = m.tick(t).limit_mps
+        if check.verdict.value == 'blind':
+            bound = 0.0
+        elif check.verdict.value in ('ok', 'late', 'jump'):
+            # plane geometry: the front-edge sensor's arc at r is first reached at its ends,
+            # r cos(fov/2) ahead (or later, when they lie beside the 0.3 m half width);
+            # reference.md sec. 5 closed form for v_max
+            free = r * math.cos(half) - lim.margin_m
+            a = robot.decel_mps2
+            bound = 0.0 if free <= 0 else (-a * latency
+                                            + math.sqrt((a * latency) ** 2 + 2 * a * free))
+        else:
+            continue  # no echo, invalid, stale, stuck: no bound from this reading alone
+        assert limit <= bound + 1e-9, (r, check.verdict, limit, bound)
