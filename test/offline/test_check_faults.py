@@ -199,3 +199,29 @@ def test_recorded_limits_that_make_no_sense_are_unusable_not_a_crash(tmp_path, c
     code, report = run_json(capsys, bag)
     assert code == 2
     assert report['summary']['unusable'][0]['reason']
+
+
+def test_wrong_message_type_on_a_configured_topic_is_unusable(recordings, tmp_path, capsys):
+    """A configured Range topic that carries Odometry: exit 2 naming the topic and type."""
+    from sonar_guard.offline.bagwrite import odometry_msg, write_bag
+    params, _ = recordings
+    records = [('/sonar/ahead', 'nav_msgs/msg/Odometry', 1.0 + 0.1 * k,
+                odometry_msg(1.0 + 0.1 * k, 0.1)) for k in range(5)]
+    bag = write_bag(tmp_path / 'wrong', records, storage='mcap')
+    code, report = run_json(capsys, bag, '--params', params)
+    assert code == 2
+    reason = report['summary']['unusable'][0]['reason']
+    assert '/sonar/ahead' in reason and 'nav_msgs/msg/Odometry' in reason
+
+
+def test_missing_topics_are_noted_and_the_sensor_is_silent(recordings, tmp_path, capsys):
+    """A recording without the rear sensor: a note, and a stale finding for it."""
+    from sonar_guard.offline.bagwrite import write_bag
+    params, _ = recordings
+    records = [r for r in bagkit.scenario(faults=False) if r[0] != '/sonar/behind'
+               and r[2] < bagkit.T0 + 3.0]
+    bag = write_bag(tmp_path / 'no_rear', records, storage='mcap')
+    code, report = run_json(capsys, bag, '--params', params)
+    assert code == 1
+    assert any("'behind'" in n for n in report['bags'][0]['summary']['notes'])
+    assert any(e['kind'] == 'stale' and e['sensor'] == 'behind' for e in report['events'])

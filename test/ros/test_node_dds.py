@@ -7,6 +7,9 @@ from the core engine fed the same inputs (the node is a thin shell over it).
 from __future__ import annotations
 
 import math
+import os
+import signal
+import time
 
 import pytest
 
@@ -137,6 +140,11 @@ def test_silent_sensor_drops_to_fallback_within_stale_after(started):
     assert delay <= budget
     rig.run_until(lambda: diag_levels(rig).get(f'sonar_guard: {FRONT}') in (
         DiagnosticStatus.STALE[0], DiagnosticStatus.ERROR[0]), timeout_s=5.0)
+    # the sensor comes back (a restarted driver): the limit climbs again
+    rig.silent.discard(FRONT)
+    back = rig.run_until(lambda: rig.limit > 0.3, timeout_s=10.0)
+    print(f'{FRONT} back: limit above 0.3 m/s after {back * 1e3:.0f} ms (rise_rate '
+          f'{CONFIG.limits.rise_rate_mps2:g} m/s^2)')
 
 
 def test_stale_odometry_drops_to_fallback(started):
@@ -237,6 +245,28 @@ def test_sim_time_drives_the_node_and_a_backward_jump_resets_once(started):
     mark = len(rig.limits)
     rig.run_until(lambda: len(rig.limits) > mark + 40 and rig.limit > 0.3, timeout_s=30.0)
     assert proc.output().count('jumped backwards') == 1
+
+
+def test_node_paused_and_resumed_recovers(started):
+    """SIGSTOP for 1 s while inputs keep coming, then SIGCONT: the node answers again and its
+    limit is sane (never above max_speed) within a few publish periods."""
+    proc, rig = started()
+    rig.vx = 0.05
+    rig.run_until(lambda: rig.limit > 0.5, timeout_s=30.0)
+    os.kill(proc.proc.pid, signal.SIGSTOP)
+    try:
+        deadline = time.monotonic() + 1.0
+        while time.monotonic() < deadline:  # keep feeding while it is paused
+            rig.publish_readings()
+            rig.publish_odometry()
+            rclpy.spin_once(rig.node, timeout_sec=0.02)
+    finally:
+        os.kill(proc.proc.pid, signal.SIGCONT)
+    mark = len(rig.limits)
+    took = rig.run_until(lambda: len(rig.limits) > mark + 10, timeout_s=10.0)
+    print(f'\npaused 1 s: 10 fresh limits {took * 1e3:.0f} ms after SIGCONT')
+    assert all(0.0 <= v <= CONFIG.limits.max_speed_mps for _, v in rig.limits[mark:])
+    rig.run_until(lambda: rig.limit > 0.5, timeout_s=15.0)
 
 
 def test_sigint_exits_cleanly_within_two_seconds(started):
