@@ -229,4 +229,10 @@ def check_bag(path: str, config: Config | None, *, config_source: str = '',
             result.error = str(err)
         if progress is not None:
             progress(1.0)
-        return replayer.finish()
+        result = replayer.finish()
+        if result.error is None and not any(s.readings for s in result.sensors):
+            # nothing was checked: that is no clean bill of health
+            found = ', '.join(sorted(bag.topics)) or 'none'
+            result.error = (f'{path}: no readings of the configured sensors in the recording '
+                            f'(topics: {found})')
+        return result

@@ -225,3 +225,13 @@ def test_missing_topics_are_noted_and_the_sensor_is_silent(recordings, tmp_path,
     assert code == 1
     assert any("'behind'" in n for n in report['bags'][0]['summary']['notes'])
     assert any(e['kind'] == 'stale' and e['sensor'] == 'behind' for e in report['events'])
+
+
+def test_recording_without_readings_exits_2(recordings, tmp_path, capsys):
+    """An empty recording is not a clean one: exit 2 saying no readings were found."""
+    from sonar_guard.offline.bagwrite import write_bag
+    params, _ = recordings
+    bag = write_bag(tmp_path / 'empty', iter([]), storage='mcap')
+    code, report = run_json(capsys, bag, '--params', params)
+    assert code == 2
+    assert 'no readings' in report['summary']['incomplete'][0]['reason']
