@@ -18,7 +18,7 @@ from diagnostic_msgs.msg import DiagnosticArray
 from geometry_msgs.msg import Twist
 from nav_msgs.msg import Odometry
 import rclpy
-from rclpy.executors import ExternalShutdownException
+from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
 from rclpy.node import Node
 from rclpy.parameter import Parameter
 from rclpy.qos import (
@@ -282,18 +282,32 @@ def main(args: Sequence[str] | None = None) -> int:
             for problem in err.problems:
                 logger.error(f'  - {problem}')
             return 2
-        rclpy.spin(node)
+        _spin(node)
     except (KeyboardInterrupt, ExternalShutdownException):
         pass
-    except RuntimeError:
-        if rclpy.ok():
-            raise
-        # rclpy may fail to take a message while SIGINT is shutting the context down
     finally:
         if node is not None:
             node.destroy_node()
         rclpy.try_shutdown()
     return 0
+
+
+def _spin(node: SonarGuardNode) -> None:
+    """Spin until shutdown; a message that cannot be taken is logged, not fatal.
+
+    rclpy can fail to take a message when SIGINT arrives in the middle of it (the pending
+    interrupt breaks the conversion); the node then goes on and sees the shutdown next turn.
+    """
+    executor = SingleThreadedExecutor()
+    executor.add_node(node)
+    failures = 0
+    while rclpy.ok():
+        try:
+            executor.spin_once(timeout_sec=0.1)
+        except RuntimeError as err:
+            failures += 1
+            if failures <= 3 or failures % 1000 == 0:
+                node.get_logger().warning(f'could not take a message ({failures}): {err}')
 
 
 if __name__ == '__main__':
