@@ -64,10 +64,12 @@ def parse_kinds(text: str | None) -> frozenset[str]:
     return frozenset(kinds)
 
 
-def _check_one(args: tuple[str, Config | None, str]) -> BagResult | Unusable:
+def _check_one(args: tuple[str, Config | None, str],
+               progress: Callable[[float], None] | None = None) -> BagResult | Unusable:
+    """Check one recording; an unusable one becomes an :class:`Unusable` with one line."""
     path, config, source = args
     try:
-        return check_bag(path, config, config_source=source)
+        return check_bag(path, config, config_source=source, progress=progress)
     except (RecordingError, ConfigError) as err:  # ConfigError: limits found in the messages
         return Unusable(path, ' '.join(str(err).split()))
 
@@ -85,13 +87,9 @@ def check_many(paths: Sequence[str], config: Config | None, *, config_source: st
                 if progress is not None:
                     progress(path, 1.0)
     else:
-        outcomes = []
-        for path, cfg, source in work:
-            hook = (lambda f, p=path: progress(p, f)) if progress is not None else None
-            try:
-                outcomes.append(check_bag(path, cfg, config_source=source, progress=hook))
-            except (RecordingError, ConfigError) as err:
-                outcomes.append(Unusable(path, ' '.join(str(err).split())))
+        outcomes = [_check_one(item, None if progress is None else
+                               (lambda f, p=item[0]: progress(p, f)))
+                    for item in work]
     for outcome in outcomes:
         if isinstance(outcome, Unusable):
             run.unusable.append(outcome)
