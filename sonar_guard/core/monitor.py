@@ -436,10 +436,7 @@ class Monitor:
             vx, vy = self._odom.vx_mps, self._odom.vy_mps
             speed = math.hypot(vx, vy)
             if speed > STILL_SPEED_MPS:
-                if self.config.robot.holonomic:
-                    self._heading = math.atan2(vy, vx) % (2 * math.pi)
-                else:
-                    self._heading = 0.0 if vx >= 0 else math.pi
+                self._heading = self.heading_of(vx, vy)
         target, reason, limiting, covering, fallback = self._bound(self._heading, now,
                                                                     odom_fresh)
         self._limit = self._rise_limited(target, now)
@@ -449,6 +446,13 @@ class Monitor:
                         heading_rad=self._heading, reason=reason, limiting_sensor=limiting,
                         covering=covering, speed_mps=speed, odometry_fresh=odom_fresh,
                         fallback=fallback)
+
+    def heading_of(self, vx_mps: float, vy_mps: float) -> float:
+        """Return the travel heading of a body velocity, rad in [0, 2pi): any direction for a
+        holonomic base, else forward (0) or reverse (pi) by the sign of vx."""
+        if self.config.robot.holonomic:
+            return math.atan2(vy_mps, vx_mps) % (2 * math.pi)
+        return 0.0 if vx_mps >= 0 else math.pi
 
     def limit_for(self, heading_rad: float, now_s: float) -> float:
         """Return the instantaneous limit (no rise limiting) for travel along a heading, m/s."""

@@ -155,12 +155,17 @@ def estimated_firing_time(stamp_s: float, range_m: float, sensor: SensorConfig) 
     A finite in-range reading flew ``2r/c``; a reading at or beyond max_range waited the whole
     echo timeout; anything else (NaN, -inf) is taken as fired at its stamp.
     """
-    c_timeout = echo_timeout(sensor.max_range_m, sensor.air_temperature_c)
+    timeout = echo_timeout(sensor.max_range_m, sensor.air_temperature_c)
+    return _firing_time(stamp_s, range_m, timeout, sensor.max_range_m)
+
+
+def _firing_time(stamp_s: float, range_m: float, timeout_s: float, max_range_m: float) -> float:
+    """:func:`estimated_firing_time` with the echo timeout already known (hot path)."""
     if math.isnan(range_m) or range_m < 0:
         return stamp_s
-    if range_m >= sensor.max_range_m:
-        return stamp_s - c_timeout
-    return stamp_s - c_timeout * range_m / sensor.max_range_m
+    if range_m >= max_range_m:
+        return stamp_s - timeout_s
+    return stamp_s - timeout_s * range_m / max_range_m
 
 
 class ClashDetector:
@@ -183,14 +188,12 @@ class ClashDetector:
         """Record a reading; return (other sensor, gap s) when it clashes with one, else None.
 
         Readings whose flight time is unknown (NaN, -inf, negative) neither raise nor count
-        toward a clash: their firing time cannot be estimated. The firing time is estimated as
-        in :func:`estimated_firing_time` (inlined: this runs for every reading).
+        toward a clash: their firing time cannot be estimated.
         """
         if math.isnan(range_m) or range_m < 0:
             return None
         timeout = self._timeouts[name]
-        reach = self._max_range[name]
-        fire = stamp_s - (timeout if range_m >= reach else timeout * range_m / reach)
+        fire = _firing_time(stamp_s, range_m, timeout, self._max_range[name])
         self._last_fire[name] = fire
         slot = self._slot[name]
         worst: tuple[str, float] | None = None

@@ -197,10 +197,7 @@ class SonarGuardNode(Node):
         if now is None or self.cmd_pub is None:
             return
         decision = self._last_decision or self._decide(now, publish_drop=True)
-        if self.config.robot.holonomic:
-            heading = math.atan2(msg.linear.y, msg.linear.x)
-        else:
-            heading = 0.0 if msg.linear.x >= 0 else math.pi
+        heading = self.monitor.heading_of(msg.linear.x, msg.linear.y)
         limit = self.monitor.limit_for(heading, now)
         if self.monitor.covering(heading) == decision.covering:
             limit = min(limit, decision.limit_mps)  # same direction: keep the gradual rise

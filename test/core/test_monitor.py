@@ -403,3 +403,12 @@ def test_reconfigure_refuses_a_new_sensor_list():
     params['sensor_names'] = ['ahead']
     with pytest.raises(ValueError, match='restart'):
         run.m.reconfigure(build_config(params))
+
+
+def test_heading_of_a_velocity_follows_the_drive_type():
+    """Differential drive: forward or reverse by the sign of vx; holonomic: atan2(vy, vx)."""
+    diff = Monitor(make_config())
+    assert diff.heading_of(0.3, 0.2) == 0.0 and diff.heading_of(-0.1, 0.0) == math.pi
+    omni = Monitor(make_config({'robot.holonomic': True}))
+    assert omni.heading_of(0.0, 0.5) == pytest.approx(math.pi / 2)  # REP 103: y left
+    assert omni.heading_of(0.0, -0.5) == pytest.approx(3 * math.pi / 2)

@@ -110,7 +110,7 @@ class TestClash:
         assert clash.check('behind', 1.0 + timeout, math.inf) is None
 
     def test_clash_gap_is_the_difference_of_estimated_firing_times(self):
-        """The detector's inlined estimate agrees with estimated_firing_time for echoes."""
+        """The detector's gap is the difference of estimated_firing_time for two echoes."""
         config = make_config({'sonar.air_temperature': 20.0})
         clash = ClashDetector(config.sensors)
         clash.check('ahead', 1.000, 1.2)
