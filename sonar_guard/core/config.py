@@ -286,17 +286,21 @@ class Config:
         return out
 
 
+# parameter key of a sensor (under sensors.<name>.) -> SensorConfig field, one table for both
+# directions
+_SENSOR_FIELD_OF_KEY: dict[str, str] = {
+    'topic': 'topic', 'frame_id': 'frame_id', 'x': 'x_m', 'y': 'y_m', 'z': 'z_m',
+    'yaw': 'yaw_rad', 'slot': 'slot', 'min_range': 'min_range_m', 'max_range': 'max_range_m',
+    'field_of_view': 'field_of_view_rad', 'slot_duration': 'slot_duration_s',
+    'air_temperature': 'air_temperature_c', 'ring_down': 'ring_down_s',
+    'resolution': 'resolution_m', 'late_after': 'late_after_s', 'stuck_count': 'stuck_count',
+    'stuck_travel': 'stuck_travel_m', 'stuck_turn': 'stuck_turn_rad',
+    'jump_speed': 'jump_speed_mps',
+}
+
+
 def _sensor_values(s: SensorConfig) -> dict[str, Any]:
-    return {
-        'topic': s.topic, 'frame_id': s.frame_id, 'x': s.x_m, 'y': s.y_m, 'z': s.z_m,
-        'yaw': s.yaw_rad, 'slot': s.slot, 'min_range': s.min_range_m,
-        'max_range': s.max_range_m, 'field_of_view': s.field_of_view_rad,
-        'slot_duration': s.slot_duration_s, 'air_temperature': s.air_temperature_c,
-        'ring_down': s.ring_down_s, 'resolution': s.resolution_m,
-        'late_after': s.late_after_s, 'stuck_count': s.stuck_count,
-        'stuck_travel': s.stuck_travel_m, 'stuck_turn': s.stuck_turn_rad,
-        'jump_speed': s.jump_speed_mps,
-    }
+    return {key: getattr(s, attr) for key, attr in _SENSOR_FIELD_OF_KEY.items()}
 
 
 # ----------------------------------------------------------------------------------------
@@ -500,16 +504,9 @@ def _read_sensor(r: _Reader, name: str, index: int, defaults: Mapping[str, Any])
     topic = v['topic'] or f'sonar/{name}'
     if not _TOPIC_RE.match(topic) or '//' in topic or topic.endswith('/'):
         r.problems.append(f"'sensors.{name}.topic' must be a valid ROS topic name: {topic!r}")
-    slot = v['slot'] if v['slot'] >= 0 else index
-    return SensorConfig(
-        name=name, topic=topic, frame_id=v['frame_id'], x_m=v['x'], y_m=v['y'], z_m=v['z'],
-        yaw_rad=v['yaw'], slot=slot, min_range_m=v['min_range'], max_range_m=v['max_range'],
-        field_of_view_rad=v['field_of_view'], slot_duration_s=v['slot_duration'],
-        air_temperature_c=v['air_temperature'], ring_down_s=v['ring_down'],
-        resolution_m=v['resolution'], late_after_s=v['late_after'],
-        stuck_count=v['stuck_count'], stuck_travel_m=v['stuck_travel'],
-        stuck_turn_rad=v['stuck_turn'], jump_speed_mps=v['jump_speed'],
-    )
+    v['topic'] = topic
+    v['slot'] = v['slot'] if v['slot'] >= 0 else index
+    return SensorConfig(name=name, **{attr: v[key] for key, attr in _SENSOR_FIELD_OF_KEY.items()})
 
 
 def _cross_checks(problems: list[str], sensors: Sequence[SensorConfig], limits: LimitsConfig,

@@ -202,3 +202,12 @@ REP_103_UNITS = {'', 'm', 's', 'rad', 'Hz', 'degC', 'm/s', 'm/s^2'}
 def test_every_parameter_unit_is_rep_103(spec):
     """No feet, degrees of angle, milliseconds or km/h anywhere in the parameters (REP 103)."""
     assert spec.unit in REP_103_UNITS
+
+
+def test_every_sensor_key_maps_to_a_sensor_config_field():
+    """The key-to-field table covers each per-sensor key and each SensorConfig field but name."""
+    from sonar_guard.core.config import _SENSOR_FIELD_OF_KEY, SensorConfig
+    keys = {s.key.rsplit('.', 1)[1] for s in sensor_specs('x')}
+    assert set(_SENSOR_FIELD_OF_KEY) == keys
+    fields = {f.name for f in dataclasses.fields(SensorConfig)} - {'name'}
+    assert set(_SENSOR_FIELD_OF_KEY.values()) == fields
