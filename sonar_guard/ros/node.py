@@ -35,11 +35,11 @@ from visualization_msgs.msg import MarkerArray
 
 from sonar_guard import SAFETY_CAUTION
 from sonar_guard.core.config import Config
-from sonar_guard.core.monitor import Decision, Event, Monitor
+from sonar_guard.core.monitor import Decision, Event, Monitor, SensorStatus
 from sonar_guard.core.readings import Verdict
 from sonar_guard.errors import ConfigError
 from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
-from sonar_guard.ros.diagnostics import build_diagnostics, levels_of
+from sonar_guard.ros.diagnostics import build_diagnostics, monitor_level, sensor_level
 from sonar_guard.ros.markers import build_markers
 from sonar_guard.ros.params import ParameterBridge
 
@@ -229,21 +229,24 @@ class SonarGuardNode(Node):
             return
         decision = self._decide(now, publish_drop=False)
         self._publish_limit(decision.limit_mps)
-        diagnostics = self._diagnostics(decision, now)
-        levels = levels_of(diagnostics)
+        statuses = self.monitor.statuses(now)
+        # levels only at 20 Hz; the message is built when one changed (or at the 1 Hz tick)
+        levels = {s.name: sensor_level(s) for s in statuses}
+        levels[''] = monitor_level(decision, self.config)
         if levels != self._levels:  # a level changed: say so now, not at the next 1 Hz tick
             self._levels = levels
-            self.diag_pub.publish(diagnostics)
+            self.diag_pub.publish(self._diagnostics(statuses, decision, now))
 
-    def _diagnostics(self, decision: Decision, now: float) -> DiagnosticArray:
-        return build_diagnostics(self.monitor.statuses(now), decision, self.config,
-                                 Time(seconds=now).to_msg())
+    def _diagnostics(self, statuses: Sequence[SensorStatus], decision: Decision,
+                     now: float) -> DiagnosticArray:
+        return build_diagnostics(statuses, decision, self.config, Time(seconds=now).to_msg())
 
     def _publish_diagnostics(self) -> None:
         now = self._now()
         if now is None or self._last_decision is None:
             return
-        self.diag_pub.publish(self._diagnostics(self._last_decision, now))
+        self.diag_pub.publish(self._diagnostics(self.monitor.statuses(now),
+                                                self._last_decision, now))
 
     def _publish_markers(self) -> None:
         now = self._now()
