@@ -152,7 +152,7 @@ def cmd_tune(args: argparse.Namespace) -> int:
     if not proposals:
         print('no proposals: the recordings agree with the parameters', file=report)
     for p in proposals:
-        print(('LOOSER (kept, review): ' if p.looser else 'proposed: ') + p.describe(),
+        print(('not applied: ' if p.looser else 'proposed: ') + p.describe(),
               file=report)
     return EXIT_OK
 
