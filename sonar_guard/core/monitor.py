@@ -36,7 +36,6 @@ from sonar_guard.core.acoustics import echo_timeout
 from sonar_guard.core.braking import max_safe_speed_unchecked
 from sonar_guard.core.config import Config, SensorConfig
 from sonar_guard.core.geometry import (
-    FloatArray,
     Footprint,
     Mount,
     beam_axis,
@@ -147,14 +146,16 @@ class _SensorState:
     """Everything the engine remembers about one sensor."""
 
     __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'heard_stamp',
-                 'configured_latency_s', 'last_ok_range', 'memory_m', 'memory_since',
-                 'memory_stamp', 'periods', 'seen_m', 'seen_stamp', 'slot_s', 'tables',
-                 'timeout_s', 'validator')
+                 'configured_latency_s', 'last_ok_range', 'latency_s', 'memory_m',
+                 'memory_since', 'memory_stamp', 'periods', 'seen_m', 'seen_stamp', 'slot_s',
+                 'tables', 'timeout_s', 'travel_memo', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
-        self.tables: dict[float, FloatArray] = {}  # heading -> travel per TABLE_STEP_M of range
+        self.tables: dict[float, list[float]] = {}  # heading -> travel per TABLE_STEP_M of range
+        self.travel_memo = (math.nan, math.nan, math.nan)  # (range, heading, travel) last asked
         self.slot_s = 0.0  # length of this sensor's slot, s (set from the schedule)
         self.configured_latency_s = 0.0  # worst-case detection latency of the schedule, s
+        self.latency_s = 0.0  # detection latency now: measured when possible, else configured
         self.validator = ReadingValidator(config, stale_after_s=stale_after_s)
         self.configure(config, footprint, stale_after_s)
         self.periods = PeriodTracker()
@@ -166,12 +167,14 @@ class _SensorState:
         self.axis = beam_axis(mount_of(config))
         self.footprint = footprint
         self.tables = {}  # the mount may have moved: travel tables are rebuilt on demand
+        self.travel_memo = (math.nan, math.nan, math.nan)
         self.timeout_s = echo_timeout(config.max_range_m, config.air_temperature_c)
         self.validator.configure(config, stale_after_s=stale_after_s)
 
     def reset(self) -> None:
         self.validator.reset()
         self.periods.reset()
+        self.latency_s = self.configured_latency_s
         self.check: ReadingCheck | None = None
         self.heard_stamp: float | None = None
         self.seen_m = math.nan  # effective range of the last usable reading, m
@@ -189,17 +192,29 @@ class _SensorState:
     def travel(self, range_m: float, heading: float) -> float:
         """Return how far the robot may travel along ``heading`` before it reaches the arc
         of a reading ``range_m`` (inf: the arc lies outside the swept corridor), m."""
+        memo_range, memo_heading, memo_travel = self.travel_memo
+        if range_m == memo_range and heading == memo_heading:
+            return memo_travel  # ticks between readings ask the same question again
         table = self.tables.get(heading)
         if table is None:
             grid = np.arange(0.0, self.config.max_range_m + 2 * TABLE_STEP_M, TABLE_STEP_M)
-            table = travel_to_arc(mount_of(self.config), self.footprint, heading, grid)
+            table = travel_to_arc(mount_of(self.config), self.footprint, heading, grid).tolist()
             self.tables[heading] = table
         x = max(0.0, range_m) / TABLE_STEP_M
         i = min(int(x), len(table) - 2)
-        a, b = float(table[i]), float(table[i + 1])
+        a, b = table[i], table[i + 1]
         if math.isinf(a) or math.isinf(b):
-            return min(a, b)  # at the corridor's edge take the finite, nearer bound
-        return a + (b - a) * (x - i)
+            travel = min(a, b)  # at the corridor's edge take the finite, nearer bound
+        else:
+            travel = a + (b - a) * (x - i)
+        self.travel_memo = (range_m, heading, travel)
+        return travel
+
+    def refresh_latency(self) -> None:
+        """Recompute the detection latency after a new period or a new schedule, s."""
+        periods = self.periods
+        self.latency_s = (periods.worst_s - self.slot_s + self.timeout_s if periods.ready
+                          else self.configured_latency_s)
 
 
 class Monitor:
@@ -219,6 +234,7 @@ class Monitor:
         self._closed: list[Event] = []
         self._open: dict[tuple[str, str | None], _OpenEvent] = {}
         self._start = math.nan
+        self._heard_floor = -math.inf  # no sensor was heard last before this (s): lower bound
         self._reset_motion()
 
     def _derive(self, config: Config) -> None:
@@ -228,6 +244,7 @@ class Monitor:
         for name, st in self._states.items():  # cached: read for every covering sensor, every tick
             st.slot_s = self.schedule.slot_duration_s(name)
             st.configured_latency_s = self.schedule.timing(name).detection_latency_s
+            st.refresh_latency()
         count = HOLONOMIC_HEADINGS if config.robot.holonomic else 2
         self._headings = uniform_headings(count)
         table = coverage([mount_of(s) for s in config.sensors], config.robot.footprint,
@@ -276,6 +293,7 @@ class Monitor:
             self._clash.reset()
             self._reset_motion()
             self._start = now_s
+            self._heard_floor = -math.inf
             self.clock_resets += 1
         if math.isnan(self._start):
             self._start = now_s
@@ -290,8 +308,8 @@ class Monitor:
         self._advance(reading.arrival_s)
         check = st.validator.check(reading, self._pose)
         st.check = check
-        st.counts[check.verdict.value] += 1
         v = check.verdict
+        st.counts[v._value_] += 1  # _value_: the plain attribute behind .value (hot path)
         name = reading.sensor
         t = reading.stamp_s
         if v in (Verdict.INVALID, Verdict.STALE):
@@ -300,6 +318,7 @@ class Monitor:
             self._close_other_stretches(name, keep=(_STRETCH_KINDS[v], 'stale', 'no_echo'))
             return check
         st.periods.add(t)
+        st.refresh_latency()
         clash = self._clash.check(name, t, reading.range_m)
         if clash is not None:
             other, gap = clash
@@ -309,6 +328,10 @@ class Monitor:
         else:
             self._close(name, 'slot_clash')
         self._apply(st, check)
+        if v is Verdict.OK and not check.late:  # the common case: nothing opens
+            if self._open:
+                self._close_other_stretches(name, keep=())
+            return check
         keep = set()
         if v is Verdict.NO_ECHO and st.memory_m is not None and ('no_echo', name) in self._open:
             self._open[('no_echo', name)].t_last = t
@@ -416,13 +439,18 @@ class Monitor:
         self._advance(now_s)
         now = self._now
         lim = self.config.limits
-        for name, st in self._states.items():
-            since = st.heard_stamp if st.heard_stamp is not None else self._start
-            if now - since > lim.stale_after_s:
-                if ('stale', name) not in self._open:
-                    self._stretch(name, 'stale', since,
-                                  f'no usable reading for more than {lim.stale_after_s:g} s')
-                self._open[('stale', name)].t_last = now
+        stale_after = lim.stale_after_s
+        if now - self._heard_floor > stale_after:  # someone may be silent: look at each
+            floor = math.inf
+            for name, st in self._states.items():
+                since = st.heard_stamp if st.heard_stamp is not None else self._start
+                floor = min(floor, since)
+                if now - since > stale_after:
+                    if ('stale', name) not in self._open:
+                        self._stretch(name, 'stale', since,
+                                      f'no usable reading for more than {stale_after:g} s')
+                    self._open[('stale', name)].t_last = now
+            self._heard_floor = floor
         odom_fresh = self._odometry_fresh(now)
         if not odom_fresh:
             since = self._odom.arrival_s if self._odom is not None else self._start
@@ -471,10 +499,7 @@ class Monitor:
 
     def detection_latency_s(self, name: str) -> float:
         """Worst-case detection latency of one sensor: measured when possible, else configured."""
-        st = self._states[name]
-        if st.periods.ready:
-            return st.periods.worst_s - st.slot_s + st.timeout_s
-        return st.configured_latency_s
+        return self._states[name].latency_s
 
     def _bound(self, heading: float, now: float, odom_fresh: bool
                ) -> tuple[float, str, str | None, tuple[str, ...], bool]:
@@ -489,26 +514,38 @@ class Monitor:
             return fallback, 'odometry stale or missing', None, covering, True
         if not covering:
             return fallback, 'no sensor covers this direction', None, covering, True
-        best, reason, limiting, fell_back = lim.max_speed_mps, 'clear', None, False
+        best, limiting, fell_back = lim.max_speed_mps, None, False
+        why = ''  # set when a silent or stuck sensor limits
+        best_free = best_latency = 0.0
+        states = self._states
+        stale_after, margin = lim.stale_after_s, lim.margin_m
+        reaction, decel = robot.reaction_time_s, robot.decel_mps2
         for name in covering:
-            st = self._states[name]
-            silent = st.heard_stamp is None or now - st.heard_stamp > lim.stale_after_s
+            st = states[name]
+            heard = st.heard_stamp
+            silent = heard is None or now - heard > stale_after
             if silent or (st.check is not None and st.check.verdict is Verdict.STUCK):
                 fell_back = True
                 if fallback <= best:
-                    why = 'silent' if silent else 'stuck'
-                    best, reason, limiting = fallback, f'{name} {why}', name
+                    best, limiting, why = fallback, name, 'silent' if silent else 'stuck'
                 continue
             seen = st.seen_m if st.memory_m is None else min(st.seen_m, st.memory_m)
             free = st.travel(seen, heading)
-            latency = (self.detection_latency_s(name) + robot.reaction_time_s
-                       + max(0.0, now - st.seen_stamp))
+            age = now - st.seen_stamp
+            latency = st.latency_s + reaction + (age if age > 0.0 else 0.0)
             # inputs are validated already: the unchecked form of max_safe_speed (hot path)
-            speed = max_safe_speed_unchecked(free - lim.margin_m, latency, robot.decel_mps2)
+            speed = max_safe_speed_unchecked(free - margin, latency, decel)
             if speed < best:
-                best, limiting = speed, name
-                remembered = ' (remembered)' if st.memory_m is not None else ''
-                reason = (f'{name}: {free:.2f} m free{remembered}, latency {latency:.3f} s')
+                best, limiting, why = speed, name, ''
+                best_free, best_latency = free, latency
+        if limiting is None:
+            reason = 'clear'
+        elif why:
+            reason = f'{limiting} {why}'
+        else:
+            remembered = ' (remembered)' if states[limiting].memory_m is not None else ''
+            reason = (f'{limiting}: {best_free:.2f} m free{remembered}, '
+                      f'latency {best_latency:.3f} s')
         return min(best, lim.max_speed_mps), reason, limiting, covering, fell_back
 
     def _rise_limited(self, target: float, now: float) -> float:
@@ -561,6 +598,10 @@ class Monitor:
             memory_m=st.memory_m,
             latency_s=self.detection_latency_s(name), period_median_s=st.periods.median_s,
             period_worst_s=st.periods.worst_s, counts=dict(st.counts))
+
+    def verdict_counts(self, name: str) -> dict[str, int]:
+        """Return how many readings of sensor ``name`` got each verdict so far (a copy)."""
+        return dict(self._states[name].counts)
 
     def statuses(self, now_s: float) -> tuple[SensorStatus, ...]:
         """Return every sensor's status in configuration order."""

@@ -134,8 +134,8 @@ class ReadingValidator:
         stale_after_s: a reading older than this on arrival is stale.
     """
 
-    __slots__ = ('_acoustic_blind_m', '_last_finite', '_last_stamp', '_run_count', '_run_pose',
-                 '_run_range', 'sensor', 'stale_after_s')
+    __slots__ = ('_acoustic_blind_m', '_last_finite', '_last_stamp', '_meta_ok', '_run_count',
+                 '_run_pose', '_run_range', 'sensor', 'stale_after_s')
 
     def __init__(self, sensor: SensorConfig, *, stale_after_s: float) -> None:
         self.configure(sensor, stale_after_s=stale_after_s)
@@ -145,6 +145,7 @@ class ReadingValidator:
         """Take new thresholds for the same sensor; the history is kept."""
         self.sensor = sensor
         self.stale_after_s = stale_after_s
+        self._meta_ok: tuple[object, ...] | None = None  # message metadata last found agreeing
         self._acoustic_blind_m = (blind_range(sensor.ring_down_s, sensor.air_temperature_c)
                                   if sensor.ring_down_s > 0 else 0.0)
 
@@ -178,10 +179,15 @@ class ReadingValidator:
             word = 'repeats' if rd.stamp_s == self._last_stamp else 'is older than'
             return (Verdict.INVALID,
                     f'stamp {rd.stamp_s:.6f} s {word} the previous {self._last_stamp:.6f} s')
-        meta = check_metadata(rd, s)
-        if meta:
-            self._last_stamp = rd.stamp_s
-            return Verdict.INVALID, meta
+        # a sensor sends the same metadata every time: check it again only when it changes
+        given = (rd.radiation_type, rd.min_range_m, rd.max_range_m, rd.field_of_view_rad,
+                 rd.frame_id)
+        if given != self._meta_ok:
+            meta = check_metadata(rd, s)
+            if meta:
+                self._last_stamp = rd.stamp_s
+                return Verdict.INVALID, meta
+            self._meta_ok = given
         if math.isnan(r):
             self._last_stamp = rd.stamp_s
             return Verdict.INVALID, 'range is NaN (REP 117: erroneous detection)'

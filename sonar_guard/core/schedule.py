@@ -114,8 +114,16 @@ class PeriodTracker:
     def add(self, stamp_s: float) -> None:
         """Record a reading stamped ``stamp_s``."""
         if math.isfinite(self._last) and stamp_s > self._last:
-            self._periods.append(stamp_s - self._last)
-            self._worst = None
+            period = stamp_s - self._last
+            periods = self._periods
+            dropped = periods[0] if len(periods) == periods.maxlen else None
+            periods.append(period)
+            worst = self._worst
+            if worst is not None:  # keep the window's maximum without rescanning it
+                if period >= worst:
+                    self._worst = period
+                elif dropped == worst:
+                    self._worst = None  # the maximum left the window: rescan when asked
         self._last = stamp_s
 
     def reset(self) -> None:
@@ -194,15 +202,17 @@ class ClashDetector:
             return None
         timeout = self._timeouts[name]
         fire = _firing_time(stamp_s, range_m, timeout, self._max_range[name])
-        self._last_fire[name] = fire
-        slot = self._slot[name]
+        last_fire = self._last_fire
+        last_fire[name] = fire
+        slots, timeouts = self._slot, self._timeouts
+        slot = slots[name]
         worst: tuple[str, float] | None = None
-        for other, other_fire in self._last_fire.items():
-            if self._slot[other] == slot:  # includes this sensor itself
-                continue
+        nearest = math.inf
+        for other, other_fire in last_fire.items():
             gap = fire - other_fire
-            first_timeout = self._timeouts[other] if gap >= 0 else timeout
-            if abs(gap) < _CLASH_FRACTION * first_timeout:
-                if worst is None or abs(gap) < abs(worst[1]):
-                    worst = (other, gap)
+            size = gap if gap >= 0 else -gap
+            if size >= nearest or slots[other] == slot:  # same slot includes this sensor
+                continue
+            if size < _CLASH_FRACTION * (timeouts[other] if gap >= 0 else timeout):
+                worst, nearest = (other, gap), size
         return worst

@@ -15,6 +15,7 @@ from typing import Any
 
 from sonar_guard.core.config import Config, build_config
 from sonar_guard.core.monitor import Decision, Monitor
+from sonar_guard.core.readings import Verdict
 from sonar_guard.errors import RecordingError
 from sonar_guard.offline.bags import ODOMETRY_TYPE, RANGE_TYPE, BagSource, TopicInfo
 from sonar_guard.offline.results import VERDICT_CODES, BagResult, SensorSummary
@@ -22,6 +23,7 @@ from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
 
 __all__ = ['Wiring', 'Replayer', 'check_bag', 'config_from_messages', 'wire_topics']
 
+_CODES = VERDICT_CODES
 _PEEK_MESSAGES = 5000  # how far to look for a first message of each Range topic
 
 
@@ -122,6 +124,7 @@ class Replayer:
         self._period = 1.0 / config.publish_rate_hz
         self._next_tick = math.nan
         self._covering: frozenset[str] = frozenset(config.sensor_names)  # until the first tick
+        self._covering_of: tuple[str, ...] | None = None
 
     def feed(self, topic: str, t_s: float, msg: Any) -> None:
         """Process one message logged at bag time ``t_s``."""
@@ -145,36 +148,49 @@ class Replayer:
             self.monitor.on_odometry(odometry_to_sample(msg, t_s))
 
     def _reading(self, name: str, msg: Any, t_s: float) -> None:
+        # verdict counts are the engine's own (SensorStatus.counts), taken in finish()
         check = self.monitor.on_range(range_to_reading(name, msg, t_s))
         summary = self._summaries[name]
-        summary.readings += 1
-        summary.counts[check.verdict.value] += 1
         r = check.range_m
-        if math.isfinite(r) and r >= 0:
-            summary.range_min_m = min(summary.range_min_m, r)
-            summary.range_max_m = max(summary.range_max_m, r)
-        if check.verdict.value not in ('invalid', 'stale'):
+        finite = -math.inf < r < math.inf
+        if finite and r >= 0:
+            if r < summary.range_min_m:
+                summary.range_min_m = r
+            if r > summary.range_max_m:
+                summary.range_max_m = r
+        verdict = check.verdict
+        stamp = check.stamp_s
+        if verdict is not Verdict.INVALID and verdict is not Verdict.STALE:
             last = self._last_stamp.get(name)
-            if last is not None and check.stamp_s > last:
-                summary.periods.add(check.stamp_s - last)
-            self._last_stamp[name] = check.stamp_s
-            summary.latencies.add(self.monitor.detection_latency_s(name))
-        summary.ranges.add(check.stamp_s, r if math.isfinite(r) else math.inf,
-                           VERDICT_CODES[check.verdict.value])
+            if last is not None and stamp > last:
+                summary.periods.put(stamp - last)
+            self._last_stamp[name] = stamp
+            summary.latencies.put(self.monitor.detection_latency_s(name))
+        summary.ranges.put(stamp, r if finite else math.inf, _CODES[verdict._value_])
 
     def _tick(self, t_s: float) -> None:
         decision = self.monitor.tick(t_s)
-        self._covering = frozenset(decision.covering)
+        covering = decision.covering
+        if covering is not self._covering_of:  # the engine hands out one tuple per heading
+            self._covering_of = covering
+            self._covering = frozenset(covering)
         if self.on_decision is not None:
             self.on_decision(decision)
-        self.result.limit.add(t_s, decision.limit_mps)
-        self.result.speed.add(t_s, decision.speed_mps)
-        self.result.events.extend(self.monitor.pop_events())
+        result = self.result
+        result.limit.put(t_s, decision.limit_mps)
+        result.speed.put(t_s, decision.speed_mps)
+        events = self.monitor.pop_events()
+        if events:
+            result.events.extend(events)
 
     def finish(self) -> BagResult:
         """Close what is still open at the end of the recording and return the result."""
         if not math.isnan(self.result.t_end):
             self._tick(self.result.t_end)
+        for name, summary in self._summaries.items():
+            counts = self.monitor.verdict_counts(name)
+            summary.counts = counts
+            summary.readings = sum(counts.values())
         self.result.events.extend(self.monitor.finish())
         self.result.events.sort(key=lambda e: (e.t_start, e.kind, e.sensor or ''))
         return self.result

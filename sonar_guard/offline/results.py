@@ -27,6 +27,8 @@ __all__ = [
     'SensorSummary',
 ]
 
+_PENDING_MAX = 8192  # samples held before a bulk flush
+
 VERDICT_CODES: dict[str, int] = {v.value: i for i, v in enumerate(Verdict)}
 """Small integer per verdict, for compact series (order of the Verdict enum)."""
 
@@ -34,7 +36,7 @@ VERDICT_CODES: dict[str, int] = {v.value: i for i, v in enumerate(Verdict)}
 class Histogram:
     """Fixed-bin histogram of durations (s) with quantiles read from the bins."""
 
-    __slots__ = ('bin_s', 'count', 'counts', 'max_s', 'overflow', 'total_s')
+    __slots__ = ('_pending', 'bin_s', 'count', 'counts', 'max_s', 'overflow', 'total_s')
 
     def __init__(self, bin_s: float = 0.0005, max_s: float = 2.0) -> None:
         self.bin_s = bin_s
@@ -43,6 +45,20 @@ class Histogram:
         self.overflow: list[float] = []  # values beyond max_s, kept exactly (rare by nature)
         self.count = 0
         self.total_s = 0.0
+        self._pending: list[float] = []  # values put() but not yet counted
+
+    def put(self, value_s: float) -> None:
+        """Count one duration later, in bulk (cheap; for hot loops). Reading flushes."""
+        pending = self._pending
+        pending.append(value_s)
+        if len(pending) >= _PENDING_MAX:
+            self.flush()
+
+    def flush(self) -> None:
+        """Count every value put() so far."""
+        if self._pending:
+            values, self._pending = self._pending, []
+            self.add_many(np.asarray(values, dtype=np.float64))
 
     def add(self, value_s: float) -> None:
         """Count one duration (non-finite and negative values are ignored)."""
@@ -70,6 +86,7 @@ class Histogram:
 
     def quantile(self, q: float) -> float:
         """Return the q-quantile (0..1) to within one bin (upper bin edge), s; NaN if empty."""
+        self.flush()
         if self.count == 0:
             return math.nan
         rank = q * (self.count - 1)
@@ -85,6 +102,7 @@ class Histogram:
     @property
     def worst_s(self) -> float:
         """Largest value seen (to within one bin below max_s), s; NaN if empty."""
+        self.flush()
         if self.overflow:
             return max(self.overflow)
         nz = np.flatnonzero(self.counts)
@@ -92,6 +110,7 @@ class Histogram:
 
     def to_dict(self) -> dict[str, Any]:
         """Return the non-empty bins as {'bin_s', 'edges_s', 'counts'} for plots and JSON."""
+        self.flush()
         nz = np.flatnonzero(self.counts)
         return {'bin_s': self.bin_s, 'edges_s': (nz * self.bin_s).tolist(),
                 'counts': self.counts[nz].tolist(), 'beyond': len(self.overflow)}
@@ -104,7 +123,7 @@ class BucketSeries:
     (speeds). When full, neighbouring buckets merge and the bucket width doubles.
     """
 
-    __slots__ = ('_keep_min', '_t', '_v', '_x', 'capacity', 'width_s', 'start_s')
+    __slots__ = ('_keep_min', '_pending', '_t', '_v', '_x', 'capacity', 'width_s', 'start_s')
 
     def __init__(self, capacity: int = 4000, width_s: float = 0.05, keep: str = 'min') -> None:
         if keep not in ('min', 'max'):
@@ -116,6 +135,49 @@ class BucketSeries:
         self._t: list[float] = []
         self._v: list[float] = []
         self._x: list[int] = []  # an extra small integer per point (e.g. a verdict code)
+        self._pending: list[tuple[float, float, int]] = []  # put() but not yet added
+
+    def put(self, t_s: float, value: float, extra: int = 0) -> None:
+        """Add a sample later, in bulk (cheap; for hot loops); the result equals add()'s."""
+        pending = self._pending
+        pending.append((t_s, value, extra))
+        if len(pending) >= _PENDING_MAX:
+            self.flush()
+
+    def flush(self) -> None:
+        """Add every sample put() so far, exactly as add() one by one would.
+
+        A bucket ends up holding the first sample with its extreme value (or the existing
+        point when that is as good), and its extra code follows that sample and later non-zero
+        codes. So only these samples go through add(): the first of each bucket, those with an
+        extra code or a non-finite value, and those equal to their bucket's finite extreme.
+        Merging buckets later keeps this true (a merged bucket is a union of buckets).
+        """
+        if not self._pending:
+            return
+        pending, self._pending = self._pending, []
+        n = len(pending)
+        t = np.fromiter((p[0] for p in pending), np.float64, n)
+        ordered = (bool(np.isfinite(t).all()) and bool(np.all(t[1:] >= t[:-1]))
+                   and (not self._t or t[0] >= self._t[-1]))
+        if not ordered:  # out-of-order times follow add()'s own rules, sample by sample
+            for ti, vi, xi in pending:
+                self.add(ti, vi, xi)
+            return
+        v = np.fromiter((p[1] for p in pending), np.float64, n)
+        x = np.fromiter((p[2] for p in pending), np.int64, n)
+        start = float(t[0]) if math.isnan(self.start_s) else self.start_s
+        k = np.floor((t - start) / self.width_s)
+        first = np.ones(n, dtype=bool)
+        first[1:] = k[1:] != k[:-1]
+        starts = np.flatnonzero(first)
+        finite = np.isfinite(v)
+        reduce = np.fmin.reduceat if self._keep_min else np.fmax.reduceat
+        extreme = reduce(np.where(finite, v, np.nan), starts)
+        extreme_of = np.repeat(extreme, np.diff(np.append(starts, n)))
+        keep = first | (x != 0) | ~finite | (v == extreme_of)
+        for i in np.flatnonzero(keep).tolist():
+            self.add(float(t[i]), float(v[i]), int(x[i]))
 
     def add(self, t_s: float, value: float, extra: int = 0) -> None:
         """Add a sample at time ``t_s`` (samples arrive in time order)."""
@@ -145,10 +207,12 @@ class BucketSeries:
     def arrays(self) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64],
                               npt.NDArray[np.int64]]:
         """Return (times s, values, extras) as numpy arrays."""
+        self.flush()
         return (np.asarray(self._t, dtype=np.float64), np.asarray(self._v, dtype=np.float64),
                 np.asarray(self._x, dtype=np.int64))
 
     def __len__(self) -> int:
+        self.flush()
         return len(self._t)
 
 
