@@ -1,4 +1,4 @@
-"""Fast decoding of sensor_msgs/Range payloads in CDR (the rosbag2 serialization).
+"""Fast decoding of sensor_msgs/Range and nav_msgs/Odometry payloads in CDR (rosbag2's format).
 
 A Range in CDR (XCDR1, as rosbag2 stores it) after the 4-byte encapsulation header, with every
 primitive aligned to its size counted from the first byte after that header::
@@ -10,6 +10,11 @@ Humble's Range has no ``variance``; Iron and later append it. Both are told apar
 length, so one decoder serves every distribution. :func:`decode_range` returns small immutable
 records with the message's attribute paths (``msg.header.stamp.sec``, ``msg.range``, ...);
 :func:`decode_ranges` decodes many payloads at once with numpy and agrees with it exactly.
+
+An Odometry is a header, a second string (child_frame_id), then 85 float64 aligned to 8:
+pose (position xyz, orientation xyzw, 36 covariance) and twist (linear xyz, angular xyz,
+36 covariance); the layout is the same in every distribution. :func:`decode_odometry`
+returns records with the message's attribute paths (``msg.twist.twist.linear.x``, ...).
 """
 from __future__ import annotations
 
@@ -24,8 +29,10 @@ import numpy.typing as npt
 __all__ = [
     'Header',
     'RangeArrays',
+    'OdometryMessage',
     'RangeMessage',
     'Stamp',
+    'decode_odometry',
     'decode_range',
     'decode_ranges',
 ]
@@ -252,3 +259,109 @@ def decode_ranges(raws: Sequence[bytes | memoryview]) -> RangeArrays:
 
     stamp_s = out['sec'].astype(np.float64) + out['nanosec'].astype(np.float64) * 1e-9
     return RangeArrays(stamp_s=stamp_s, frame_id=frame_ids, **out)
+
+
+class Vector3(NamedTuple):
+    """A geometry_msgs/Vector3 or Point (x, y, z)."""
+
+    x: float
+    y: float
+    z: float
+
+
+class Quaternion(NamedTuple):
+    """A geometry_msgs/Quaternion (x, y, z, w)."""
+
+    x: float
+    y: float
+    z: float
+    w: float
+
+
+class Pose(NamedTuple):
+    """A geometry_msgs/Pose: position (m) and orientation."""
+
+    position: Vector3
+    orientation: Quaternion
+
+
+class PoseWithCovariance(NamedTuple):
+    """A geometry_msgs/PoseWithCovariance: pose and a row-major 6x6 covariance."""
+
+    pose: Pose
+    covariance: tuple[float, ...]
+
+
+class Twist(NamedTuple):
+    """A geometry_msgs/Twist: linear (m/s) and angular (rad/s) velocity."""
+
+    linear: Vector3
+    angular: Vector3
+
+
+class TwistWithCovariance(NamedTuple):
+    """A geometry_msgs/TwistWithCovariance: twist and a row-major 6x6 covariance."""
+
+    twist: Twist
+    covariance: tuple[float, ...]
+
+
+class OdometryMessage(NamedTuple):
+    """A nav_msgs/Odometry: header, child frame, pose and twist with covariances."""
+
+    header: Header
+    child_frame_id: str
+    pose: PoseWithCovariance
+    twist: TwistWithCovariance
+
+
+_ODOM_DOUBLES = 7 + 36 + 6 + 36
+_ODOM_BODY = {'<': Struct(f'<{_ODOM_DOUBLES}d'), '>': Struct(f'>{_ODOM_DOUBLES}d')}
+_UINT32 = {'<': Struct('<I'), '>': Struct('>I')}
+
+
+def _cdr_string(raw: bytes | memoryview, pos: int, order: str, what: str) -> tuple[str, int]:
+    """Read a CDR string whose length field starts at ``pos``; return (text, end position)."""
+    if len(raw) < pos + 4:
+        raise ValueError(f'Odometry payload of {len(raw)} bytes is truncated in {what}')
+    (length,) = _UINT32[order].unpack_from(raw, pos)
+    end = pos + 4 + length
+    if length < 1 or len(raw) < end:
+        raise ValueError(f'Odometry payload of {len(raw)} bytes is truncated in {what} '
+                         f'(length {length})')
+    if raw[end - 1] != 0:
+        raise ValueError(f'{what} lacks its terminating NUL; the payload is garbled')
+    try:
+        return str(raw[pos + 4:end - 1], 'utf-8'), end
+    except UnicodeDecodeError as err:
+        raise ValueError(f'{what} is not valid UTF-8 ({err.reason})') from None
+
+
+def decode_odometry(raw: bytes | memoryview) -> OdometryMessage:
+    """Decode one CDR nav_msgs/Odometry payload (with its encapsulation header).
+
+    Raises ValueError naming the problem for short, garbled or foreign payloads.
+    """
+    order = _byte_order(raw)
+    size = len(raw)
+    if size < _FIXED_HEAD:
+        raise ValueError(f'Odometry payload of {size} bytes is truncated: the header needs '
+                         f'{_FIXED_HEAD} bytes')
+    sec, nanosec = _HEAD[order].unpack_from(raw, _ENCAPSULATION_SIZE)[:2]
+    frame_id, pos = _cdr_string(raw, _ENCAPSULATION_SIZE + 8, order, 'frame_id')
+    child, pos = _cdr_string(raw, _align4(pos), order, 'child_frame_id')
+    body_at = _ENCAPSULATION_SIZE + ((pos - _ENCAPSULATION_SIZE + 7) & ~7)  # float64: align 8
+    body = _ODOM_BODY[order]
+    tail = size - (body_at + body.size)
+    if tail < 0:
+        raise ValueError(f'Odometry payload of {size} bytes is truncated: it needs '
+                         f'{body_at + body.size} bytes')
+    if tail > _MAX_TAIL_PADDING:
+        raise ValueError(f'Odometry payload of {size} bytes has {tail} bytes after its last '
+                         'field; it is not a nav_msgs/Odometry')
+    d = body.unpack_from(raw, body_at)
+    header = _new(Header, (_new(Stamp, (sec, nanosec)), frame_id))
+    pose = _new(Pose, (_new(Vector3, d[0:3]), _new(Quaternion, d[3:7])))
+    twist = _new(Twist, (_new(Vector3, d[43:46]), _new(Vector3, d[46:49])))
+    return _new(OdometryMessage, (header, child, _new(PoseWithCovariance, (pose, d[7:43])),
+                                  _new(TwistWithCovariance, (twist, d[49:85]))))

@@ -11,7 +11,7 @@ import pytest
 from rosbags.serde import SerdeError
 from rosbags.typesys import Stores, get_typestore
 
-from sonar_guard.offline.cdr import RangeMessage, decode_range, decode_ranges
+from sonar_guard.offline.cdr import RangeMessage, decode_odometry, decode_range, decode_ranges
 from sonar_guard.ros.convert import stamp_to_s
 
 RANGE = 'sensor_msgs/msg/Range'
@@ -203,3 +203,94 @@ class TestDecodeRanges:
         with pytest.raises(ValueError, match=r'^payload 1: ') as bulk:
             decode_ranges([humble_payload(), bad, humble_payload()])
         assert str(bulk.value) == f'payload 1: {scalar.value}'
+
+
+ODOMETRY = 'nav_msgs/msg/Odometry'
+float64s = st.floats(allow_nan=True, allow_infinity=True)
+
+
+@st.composite
+def odometry_payloads(draw: st.DrawFn) -> tuple[str, bytes]:
+    """Draw (distro, CDR payload) of a random Odometry, little or big endian."""
+    distro = draw(st.sampled_from(sorted(STORES)))
+    store = STORES[distro]
+    types = store.types
+    vec = types['geometry_msgs/msg/Vector3']
+    header = types['std_msgs/msg/Header'](
+        stamp=types['builtin_interfaces/msg/Time'](sec=draw(st.integers(-2**31, 2**31 - 1)),
+                                                   nanosec=draw(st.integers(0, 2**32 - 1))),
+        frame_id=draw(frame_ids))
+    doubles = draw(st.lists(float64s, min_size=85, max_size=85))
+    pose = types['geometry_msgs/msg/Pose'](
+        position=types['geometry_msgs/msg/Point'](*doubles[0:3]),
+        orientation=types['geometry_msgs/msg/Quaternion'](*doubles[3:7]))
+    twist = types['geometry_msgs/msg/Twist'](linear=vec(*doubles[43:46]),
+                                             angular=vec(*doubles[46:49]))
+    msg = types[ODOMETRY](
+        header=header, child_frame_id=draw(frame_ids),
+        pose=types['geometry_msgs/msg/PoseWithCovariance'](
+            pose=pose, covariance=np.array(doubles[7:43])),
+        twist=types['geometry_msgs/msg/TwistWithCovariance'](
+            twist=twist, covariance=np.array(doubles[49:85])))
+    return distro, bytes(store.serialize_cdr(msg, ODOMETRY, little_endian=draw(st.booleans())))
+
+
+def odometry_doubles(msg: Any) -> list[bytes]:
+    """Every float64 of an Odometry in message order, as bit patterns."""
+    p, t = msg.pose.pose, msg.twist.twist
+    values = [p.position.x, p.position.y, p.position.z, p.orientation.x, p.orientation.y,
+              p.orientation.z, p.orientation.w, *list(msg.pose.covariance),
+              t.linear.x, t.linear.y, t.linear.z, t.angular.x, t.angular.y, t.angular.z,
+              *list(msg.twist.covariance)]
+    return [bits(float(v)) for v in values]
+
+
+class TestDecodeOdometry:
+    """decode_odometry against rosbags' own CDR deserializer."""
+
+    @settings(max_examples=300, deadline=None)
+    @given(odometry_payloads())
+    def test_every_field_equals_the_rosbags_deserializer(self, case):
+        """Random Odometry payloads of both distros and byte orders decode like rosbags does."""
+        distro, raw = case
+        ref = STORES[distro].deserialize_cdr(raw, ODOMETRY)  # library reference
+        ours = decode_odometry(raw)
+        assert ours.header.stamp.sec == ref.header.stamp.sec
+        assert ours.header.stamp.nanosec == ref.header.stamp.nanosec
+        assert ours.header.frame_id == ref.header.frame_id
+        assert ours.child_frame_id == ref.child_frame_id
+        assert odometry_doubles(ours) == odometry_doubles(ref)
+        assert odometry_doubles(decode_odometry(memoryview(raw))) == odometry_doubles(ref)
+
+    @pytest.mark.parametrize('frames', [('', ''), ('odom', 'base_link'), ('a', 'abcdefgh')])
+    def test_every_truncation_is_rejected(self, frames):
+        """Each prefix of an Odometry payload is refused, as rosbags refuses it too."""
+        store = STORES['humble']
+        types = store.types
+        msg = types[ODOMETRY](
+            header=types['std_msgs/msg/Header'](
+                stamp=types['builtin_interfaces/msg/Time'](sec=1, nanosec=2),
+                frame_id=frames[0]),
+            child_frame_id=frames[1],
+            pose=types['geometry_msgs/msg/PoseWithCovariance'](
+                pose=types['geometry_msgs/msg/Pose'](
+                    position=types['geometry_msgs/msg/Point'](1.0, 2.0, 3.0),
+                    orientation=types['geometry_msgs/msg/Quaternion'](0.0, 0.0, 0.0, 1.0)),
+                covariance=np.zeros(36)),
+            twist=types['geometry_msgs/msg/TwistWithCovariance'](
+                twist=types['geometry_msgs/msg/Twist'](
+                    linear=types['geometry_msgs/msg/Vector3'](0.5, 0.0, 0.0),
+                    angular=types['geometry_msgs/msg/Vector3'](0.0, 0.0, 0.1)),
+                covariance=np.zeros(36)))
+        raw = bytes(store.serialize_cdr(msg, ODOMETRY))
+        assert decode_odometry(raw).twist.twist.linear.x == 0.5
+        for cut in range(len(raw) - 7):  # the last 7 bytes cannot hold another float64
+            with pytest.raises(ValueError, match=r'truncated|shorter|NUL'):
+                decode_odometry(raw[:cut])
+        with pytest.raises(ValueError, match='not a nav_msgs/Odometry'):
+            decode_odometry(raw + bytes(8))
+
+    def test_a_range_payload_is_not_an_odometry(self):
+        """A foreign payload is refused with a reason, not misread."""
+        with pytest.raises(ValueError):
+            decode_odometry(humble_payload())
