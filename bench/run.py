@@ -8,10 +8,12 @@ reference measured in the same run on the same data:
   and against reading it without deserializing (goal >= 0.5x);
 * offline memory: peak RSS of `check` on the long recording minus on one a tenth as long
   (goal < 30 MB);
+* live node (bench/live.py): latency publisher -> node -> allowed_speed against publisher ->
+  subscriber directly (goal: <= 1 ms added at p50, <= 3 ms at p99), and 5,000 Range/s for
+  ``--live-seconds``: backlog, allowed_speed rate, RSS, CPU per 1,000 msg/s;
 * core: engine steps per second in process.
 
-Writes bench/results.json and prints a table. Live-node latency and load are not measured
-yet (see the performance issue).
+Writes bench/results.json and prints a table.
 """
 from __future__ import annotations
 
@@ -130,6 +132,10 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument('--minutes', type=float, default=30.0,
                         help='length of the long recording (default 30)')
+    parser.add_argument('--live-seconds', type=float, default=60.0,
+                        help='length of the 5,000 msg/s live load (default 60)')
+    parser.add_argument('--no-live', action='store_true',
+                        help='skip the live-node measurements (they need rclpy)')
     args = parser.parse_args()
     import yaml
 
@@ -159,6 +165,11 @@ def main() -> int:
         rss_short = check_rss_mb(short_bag, params)
         results.update(rss_long_mb=rss_long, rss_short_mb=rss_short,
                        rss_growth_mb=rss_long - rss_short)
+    live_rows: list[tuple[str, str, str]] = []
+    if not args.no_live:
+        from live import run_live
+        print('measuring the live node ...', flush=True)
+        live_rows = run_live(results, seconds=args.live_seconds)
     config = build_config(bench_params())
     results['engine_steps_per_s'] = engine_steps_per_s(config)
     results['peak_rss_bench_mb'] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
@@ -168,6 +179,7 @@ def main() -> int:
          '>= 1.5x'),
         ('offline: check vs rosbags raw read', f"{results['check_vs_raw']:.2f}x", '>= 0.5x'),
         ('offline: RSS long - short recording', f"{results['rss_growth_mb']:.1f} MB", '< 30 MB'),
+        *live_rows,
         ('core: engine steps per second', f"{results['engine_steps_per_s']:,.0f}", '-'),
     ]
     print(f"\n{readings:,} readings, {results['messages']:,} messages "
