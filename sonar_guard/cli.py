@@ -93,7 +93,7 @@ def cmd_budget(args: argparse.Namespace) -> int:
 
 def cmd_check(args: argparse.Namespace) -> int:
     """Replay recordings through the engine and report what they show."""
-    from sonar_guard.offline.atomic import write_text_atomic
+    from sonar_guard.offline.atomic import check_output_path, write_text_atomic
     from sonar_guard.offline.check import check_many, parse_kinds, print_summary, report_json
 
     try:
@@ -102,6 +102,9 @@ def cmd_check(args: argparse.Namespace) -> int:
         raise UsageError(f'--fail-on: {err}') from None
     if args.jobs < 1:
         raise UsageError(f'--jobs must be at least 1: {args.jobs}')
+    for output in (args.json if args.json != '-' else None, args.html):
+        if output:  # refuse a bad output path now, not after the check, and write none
+            check_output_path(output)
     config, source = None, ''
     if args.params:
         config = load_config_file(args.params)
@@ -134,9 +137,11 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def cmd_tune(args: argparse.Namespace) -> int:
     """Propose parameter values from recordings, each with its evidence."""
-    from sonar_guard.offline.atomic import write_text_atomic
+    from sonar_guard.offline.atomic import check_output_path, write_text_atomic
     from sonar_guard.offline.tune import gather, propose, render_params
 
+    if args.output:
+        check_output_path(args.output)
     config = load_config_file(args.params)
     evidence = gather(args.bags, config, cmd_topic=args.cmd_topic)
     proposals = propose(config, evidence)
@@ -161,18 +166,34 @@ def cmd_demo(args: argparse.Namespace) -> int:
     """Simulate the invented corridor run, record it, check it and write the report."""
     import time
 
-    from sonar_guard.offline.atomic import write_text_atomic
+    from sonar_guard.offline.atomic import OutputError, check_output_path, write_text_atomic
     from sonar_guard.offline.check import check_many, report_json
     from sonar_guard.offline.html import render_html
     from sonar_guard.sim.demo import DEMO_DURATION_S, match_planned, write_demo_bag
 
     out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
-    config = load_config_file(None)
     bag = out / 'corridor_run'
+    # refuse symbolic links before anything is written: following one would put the demo's
+    # files, or delete an old recording, somewhere the user did not name
+    if out.is_symlink():
+        raise OutputError(f'{out}: is a symbolic link; name a real folder for the demo')
+    if out.exists() and not out.is_dir():
+        raise OutputError(f'{out}: exists and is not a folder')
+    if bag.is_symlink():
+        raise OutputError(f'{bag}: is a symbolic link; remove it or choose another --out')
+    if bag.exists() and not bag.is_dir():
+        raise OutputError(f'{bag}: exists and is not a recording folder; remove it or choose '
+                          'another --out')
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise OutputError(f'{out}: cannot create the folder: {err.strerror or err}') from None
+    for report_path in (out / 'report.json', out / 'report.html'):
+        check_output_path(report_path)
+    config = load_config_file(None)
     if bag.exists():
         import shutil
-        shutil.rmtree(bag)
+        shutil.rmtree(bag)  # the demo's own old recording (links inside are removed, not followed)
     started = time.monotonic()
     duration = min(args.duration or DEMO_DURATION_S, DEMO_DURATION_S)
     print(f'simulating {duration:.0f} s of the linen cart in the service corridor ...',

@@ -13,6 +13,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 import math
 from pathlib import Path
+import struct
 from typing import Any
 
 import yaml
@@ -153,3 +154,47 @@ def write_scenario(path: Path, *, storage: str = 'mcap', faults: bool = True) ->
     distro = 'noetic' if storage == 'rosbag1' else 'humble'
     return write_bag(path, scenario(faults=faults, distro=distro), storage=storage,
                      distro=distro)
+
+
+def storage_file(bag: Path) -> Path:
+    """Return the one storage file (.mcap or .db3) of a rosbag2 directory, or the file itself."""
+    if bag.is_file():
+        return bag
+    (found,) = [p for p in bag.iterdir() if p.suffix in ('.mcap', '.db3')]
+    return found
+
+
+def overwrite(path: Path, offset: int, data: bytes) -> None:
+    """Overwrite bytes of a file in place (damage, not truncation: the size stays the same)."""
+    size = path.stat().st_size
+    assert 0 <= offset and offset + len(data) <= size, (offset, len(data), size)
+    with path.open('r+b') as fh:
+        fh.seek(offset)
+        fh.write(data)
+    assert path.stat().st_size == size
+
+
+def mcap_chunk_records(path: Path) -> list[tuple[int, int, int]]:
+    """Return (file offset, opcode, length) of the records inside an uncompressed MCAP's first
+    chunk. Layout from the MCAP specification (mcap.dev/spec): 8-byte magic, then records of
+    opcode uint8 + length uint64 + content; a Chunk (0x06) holds message_start_time,
+    message_end_time, uncompressed_size (uint64 each), uncompressed_crc (uint32), compression
+    (uint32-length string) and records (uint64-length bytes)."""
+    data = path.read_bytes()
+    pos = 8
+    while True:
+        op, length = struct.unpack_from('<BQ', data, pos)
+        if op == 0x06:
+            break
+        pos += 9 + length
+    content = pos + 9
+    (name_size,) = struct.unpack_from('<I', data, content + 28)
+    assert data[content + 32:content + 32 + name_size] == b'', 'chunk is compressed'
+    start = content + 32 + name_size
+    (size,) = struct.unpack_from('<Q', data, start)
+    records, at = [], start + 8
+    while at < start + 8 + size:
+        op, length = struct.unpack_from('<BQ', data, at)
+        records.append((at, op, length))
+        at += 9 + length
+    return records

@@ -7,7 +7,7 @@ import tempfile
 
 from sonar_guard.errors import SonarGuardError
 
-__all__ = ['OutputError', 'write_bytes_atomic', 'write_text_atomic']
+__all__ = ['OutputError', 'check_output_path', 'write_bytes_atomic', 'write_text_atomic']
 
 
 class OutputError(SonarGuardError):
@@ -18,6 +18,22 @@ def _umask() -> int:
     mask = os.umask(0)
     os.umask(mask)
     return mask
+
+
+def check_output_path(path: str | Path) -> Path:
+    """Raise OutputError unless ``path`` can be written by :func:`write_bytes_atomic`.
+
+    For checking every output path before long work starts: a symbolic link at ``path`` is
+    refused (it could send the output somewhere the user did not name), and so is a folder
+    that does not exist.
+    """
+    target = Path(path)
+    if target.is_symlink():
+        raise OutputError(f'{target}: is a symbolic link; name the real file to write')
+    folder = target.parent if str(target.parent) else Path('.')
+    if not folder.is_dir():
+        raise OutputError(f'{target}: folder {folder} does not exist')
+    return target
 
 
 def write_text_atomic(path: str | Path, text: str) -> Path:
@@ -31,12 +47,8 @@ def write_bytes_atomic(path: str | Path, data: bytes) -> Path:
     A reader never sees a half-written file. A symbolic link at ``path`` is refused: it
     could send the output somewhere the user did not name.
     """
-    target = Path(path)
-    if target.is_symlink():
-        raise OutputError(f'{target}: is a symbolic link; name the real file to write')
+    target = check_output_path(path)
     folder = target.parent if str(target.parent) else Path('.')
-    if not folder.is_dir():
-        raise OutputError(f'{target}: folder {folder} does not exist')
     fd, tmp = tempfile.mkstemp(prefix=f'.{target.name}.', suffix='.tmp', dir=folder)
     try:
         with os.fdopen(fd, 'wb') as handle:

@@ -3,7 +3,7 @@
 :class:`BagSource` opens a rosbag2 directory (with metadata.yaml), a single .mcap or .db3 file,
 or a ROS 1 .bag file with rosbags, and yields ``(topic, log_time_s, message)`` for the topics
 asked for, in log-time order, with memory that does not grow with the recording. Range
-messages stored as CDR are decoded by :func:`sonar_guard.offline.cdr.decode_range`; every
+and Odometry messages stored as CDR are decoded by :mod:`sonar_guard.offline.cdr`; every
 other message by rosbags' deserializer, with the type definitions stored in the recording
 (falling back to the distribution's standard types). Only the requested topics are decoded, so
 a type nobody can parse on another topic does not matter.
@@ -18,8 +18,14 @@ What rosbags does with damaged files (rosbags 0.11), and what this module adds:
   section itself (the salvage reader below): it yields, in time order, every message of the
   complete chunks and the whole messages at the start of the chunk the cut goes through
   (decompressing zstd and lz4 as a stream), then raises RecordingError naming how many it
-  read. A damaged chunk ends the salvage the same way. If only the summary or footer is
-  damaged, everything is read and ``damage`` says so.
+  read. A damaged chunk (bytes overwritten inside it) ends the salvage the same way, after the
+  whole records before the damage. If only the summary or footer is damaged, everything is
+  read and ``damage`` says so.
+- MCAP damaged inside a chunk while its summary is intact: rosbags opens the file, then fails
+  on the chunk (a record whose length is garbage may even make it raise OverflowError) and
+  yields none of that chunk's messages. When that happens before the first message, this
+  module reads the file again with the salvage reader, so the messages before the damage are
+  still checked.
 - SQLite3 cut short: SQLite refuses the file at open ("database disk image is malformed");
   nothing is readable. Damage SQLite only meets while reading rows raises after the rows
   read so far.
@@ -32,6 +38,7 @@ from collections.abc import Callable, Hashable, Iterable, Iterator
 from dataclasses import dataclass
 from functools import lru_cache
 import heapq
+import itertools
 import math
 from pathlib import Path, PurePath
 import sqlite3
@@ -62,7 +69,7 @@ import yaml
 
 from sonar_guard.errors import RecordingError
 from sonar_guard.offline.bagwrite import DISTROS, typestore_for
-from sonar_guard.offline.cdr import decode_range
+from sonar_guard.offline.cdr import decode_odometry, decode_range
 
 if sys.version_info >= (3, 14):  # pragma: no cover - the same module rosbags uses
     from compression import zstd
@@ -103,12 +110,14 @@ class _Damaged(Exception):
 # What the libraries raise on a bad or damaged file: rosbags' own errors, the SQLite drivers',
 # decompressors' (lz4 raises RuntimeError, zstd its ZstdError) and the low-level ones rosbags
 # lets through from a damaged index (struct, EOF, asserts in its ROS 1 index reader, ord() of
-# a missing byte). Caught only around calls into those libraries and the salvage reader, so
-# bugs elsewhere in this package still surface.
+# a missing byte; OverflowError and MemoryError when a damaged length field asks for an
+# impossible seek or buffer). Caught only around calls into those libraries and the salvage
+# reader, so bugs elsewhere in this package still surface.
 _FILE_ERRORS: tuple[type[BaseException], ...] = (
     ReaderError1, ReaderError2, AnyReaderError, TypesysError, SerdeError, _Damaged,
     apsw.Error, sqlite3.DatabaseError, zstd.ZstdError, OSError, EOFError, struct.error,
-    KeyError, IndexError, ValueError, AssertionError, RuntimeError, TypeError,
+    KeyError, IndexError, ValueError, AssertionError, RuntimeError, TypeError, OverflowError,
+    MemoryError,
 )
 # What decoding one payload raises when the bytes are not the message they claim to be.
 _DECODE_ERRORS: tuple[type[BaseException], ...] = (
@@ -116,7 +125,7 @@ _DECODE_ERRORS: tuple[type[BaseException], ...] = (
 )
 # What parsing MCAP records by hand raises on damaged bytes.
 _RECORD_ERRORS: tuple[type[BaseException], ...] = (
-    _Damaged, struct.error, ValueError, RuntimeError, zstd.ZstdError,
+    _Damaged, struct.error, ValueError, RuntimeError, zstd.ZstdError, OverflowError,
 )
 
 
@@ -215,7 +224,8 @@ class _Block:
     end: int
     chunk: bool
     min_ns: int
-    partial: bool = False  # a chunk cut short by the end of the file
+    partial: bool = False  # a chunk cut short by the end of the file, or damaged
+    records: int = -1  # of a partial chunk: how many records are whole (-1: all)
 
 
 def _string(buf: memoryview, pos: int) -> tuple[str, int]:
@@ -341,25 +351,44 @@ class _McapSalvage:
             self.channels.append(chan)
 
     def _scan_chunk(self, index: int, content: memoryview,
-                    schemas: dict[int, tuple[str, str, str]], *, partial: bool = False) -> int:
-        """Register a chunk's schemas and channels, count its messages; return its min time.
+                    schemas: dict[int, tuple[str, str, str]], *, partial: bool = False
+                    ) -> tuple[int, int]:
+        """Register a chunk's schemas and channels, count its messages; return its min time
+        and how many of its records were taken in.
 
-        Messages are counted only once the whole chunk has parsed, so a damaged chunk adds
-        nothing to the counts.
+        Messages are counted only once the chunk has parsed, so a damaged chunk adds nothing
+        to the counts. With ``partial`` (a chunk cut short or damaged) the records are taken in
+        up to the first one that is incomplete, does not parse, is of a kind chunks do not hold
+        (schema, channel and message only; mcap.dev/spec) or is a message logged outside the
+        time range the chunk's header states.
         """
         stamps: list[tuple[int, int]] = []
+        first_ns, last_ns = struct.unpack_from('<QQ', content, 0)
+        if not 0 < last_ns >= first_ns:  # no time range stated: do not judge by it
+            first_ns, last_ns = 0, _NO_TIME + 1
         payload = _chunk_payload(content, partial=partial)
+        taken = 0
         for op, rec in _records(payload, partial=partial):
-            if op == _OP_MESSAGE:
-                channel, _, log_ns, _ = _MESSAGE_HEAD.unpack_from(rec, 0)
-                stamps.append((channel, log_ns))
-            elif op in (_OP_SCHEMA, _OP_CHANNEL):
-                self._schema_or_channel(index, op, rec, schemas)
+            try:
+                if op == _OP_MESSAGE:
+                    channel, _, log_ns, _ = _MESSAGE_HEAD.unpack_from(rec, 0)
+                    if partial and not first_ns <= log_ns <= last_ns:
+                        break
+                    stamps.append((channel, log_ns))
+                elif op in (_OP_SCHEMA, _OP_CHANNEL):
+                    self._schema_or_channel(index, op, rec, schemas)
+                elif partial:
+                    break
+            except _RECORD_ERRORS:
+                if not partial:
+                    raise
+                break
+            taken += 1
         min_ns = _NO_TIME
         for channel, log_ns in stamps:
             if self._note(index, channel, log_ns):
                 min_ns = min(min_ns, log_ns)
-        return min_ns
+        return min_ns, taken
 
     def _scan(self, index: int, path: Path) -> None:
         """Walk one file's data section (pass one)."""
@@ -372,6 +401,8 @@ class _McapSalvage:
             if len(head) < 9 or head[0] != _OP_HEADER:
                 raise _Damaged('the MCAP header record is missing')
             (length,) = struct.unpack_from('<Q', head, 1)
+            if 17 + length > size:
+                raise _Damaged('the MCAP header record runs past the end of the file')
             profile, _ = _string(memoryview(fh.read(length)), 0)
             if profile != 'ros2':
                 raise _Damaged(f'MCAP profile {profile!r} is not ros2')
@@ -402,8 +433,12 @@ class _McapSalvage:
                     self._scan_record(index, fh, op, pos, end, schemas)
                 except _RECORD_ERRORS as err:
                     kind = _RECORD_NAMES.get(op, f'record (opcode 0x{op:02x})')
-                    self._lose(f'the {kind} at byte {pos} of {path.name} is damaged: '
-                               f'{_one_line(err)}')
+                    reason = (f'the {kind} at byte {pos} of {path.name} is damaged: '
+                              f'{_one_line(err)}')
+                    if op == _OP_CHUNK:
+                        recovered = self._scan_cut_chunk(index, fh, pos, end, schemas)
+                        reason += f'; {recovered} messages before the damage were recovered'
+                    self._lose(reason)
                     break
                 pos = end
             self._close_run(index, pos)
@@ -425,22 +460,24 @@ class _McapSalvage:
             self._schema_or_channel(index, op, memoryview(fh.read(end - pos - 9)), schemas)
         elif op == _OP_CHUNK:
             self._close_run(index, pos)
-            min_ns = self._scan_chunk(index, memoryview(fh.read(end - pos - 9)), schemas)
+            min_ns, _ = self._scan_chunk(index, memoryview(fh.read(end - pos - 9)), schemas)
             if min_ns != _NO_TIME:
                 self.blocks.append(_Block(index, pos, end, True, min_ns))
 
-    def _scan_cut_chunk(self, index: int, fh: Any, pos: int, size: int,
+    def _scan_cut_chunk(self, index: int, fh: Any, pos: int, end: int,
                         schemas: dict[int, tuple[str, str, str]]) -> int:
-        """Take in the complete messages of a chunk the file's end cuts; return how many."""
+        """Take in the whole messages of a chunk cut by the file's end or damaged, up to the
+        cut or the damage (the chunk ends at byte ``end`` or the file's); return how many."""
         before = self.count
         _ = fh.seek(pos + 9)
         try:
-            min_ns = self._scan_chunk(index, memoryview(fh.read(size - pos - 9)), schemas,
-                                      partial=True)
+            min_ns, taken = self._scan_chunk(index, memoryview(fh.read(end - pos - 9)),
+                                             schemas, partial=True)
         except _RECORD_ERRORS:
-            return 0  # too little of it, or damaged as well
+            return 0  # too little of it, or its own header or compression is damaged
         if min_ns != _NO_TIME:
-            self.blocks.append(_Block(index, pos, size, True, min_ns, partial=True))
+            self.blocks.append(_Block(index, pos, end, True, min_ns, partial=True,
+                                      records=taken))
         return self.count - before
 
     def _close_run(self, index: int, end: int) -> None:
@@ -471,9 +508,12 @@ class _McapSalvage:
                 data = fh.read(block.end - block.start)
                 if len(data) != block.end - block.start:
                     raise _Damaged(f'{self.paths[block.file].name} changed while being read')
+                records: Iterable[tuple[int, memoryview]]
                 if block.chunk:
                     payload = _chunk_payload(memoryview(data)[9:], partial=block.partial)
                     records = _records(payload, partial=block.partial)
+                    if block.records >= 0:
+                        records = itertools.islice(records, block.records)
                 else:
                     records = _records(data)
                 for op, rec in records:
@@ -563,6 +603,7 @@ class BagSource:
         """Messages yielded by the latest :meth:`messages` iteration."""
         self._backend: _RosbagsBackend | _McapSalvage | None = None
         self._last_ns: int | None = None
+        self._mcap_files: list[Path] = []  # the MCAP storage files, for salvage while reading
 
     def __repr__(self) -> str:
         """Return a short description: path, storage, message count."""
@@ -629,6 +670,8 @@ class BagSource:
         if storage is None:
             raise self._fail(self._unknown_type())
         self.storage = storage
+        if storage == 'mcap':
+            self._mcap_files = [path]
         reader_cls = Reader1 if storage == 'rosbag1' else Reader2
         reader, err = self._try_rosbags(reader_cls)
         if reader is not None:
@@ -672,18 +715,20 @@ class BagSource:
         info = _read_metadata(path)
         identifier = str(info.get('storage_identifier', '')) if info else ''
         self.storage = identifier if identifier in ('mcap', 'sqlite3') else 'rosbag2'
+        compression = str(info.get('compression_mode', '') or '').lower() if info else 'none'
+        if info and identifier == 'mcap' and compression in ('', 'none'):
+            try:
+                self._mcap_files = [path / PurePath(str(name)).name
+                                    for name in info['relative_file_paths']]
+            except (KeyError, TypeError):
+                self._mcap_files = []
         reader, err = self._try_rosbags(Reader2)
         if reader is not None:
             return _RosbagsBackend(reader)
         assert err is not None
-        compression = str(info.get('compression_mode', '') or '').lower() if info else 'none'
-        if info and identifier == 'mcap' and compression in ('', 'none'):
-            try:
-                files = [path / PurePath(str(name)).name
-                         for name in info['relative_file_paths']]
-            except (KeyError, TypeError):
-                files = []
-            salvage = self._try_salvage(files, err) if files else None
+        if self._mcap_files:
+            files = self._mcap_files
+            salvage = self._try_salvage(files, err)
             if salvage is not None:
                 listed = info.get('message_count')
                 if salvage.lost and isinstance(listed, int):
@@ -706,7 +751,7 @@ class BagSource:
         """Scan MCAP files rosbags refused; None when they are not MCAP data at all."""
         try:
             salvage = _McapSalvage(files)
-        except (_Damaged, OSError, struct.error, ValueError):
+        except (_Damaged, OSError, struct.error, ValueError, OverflowError, MemoryError):
             return None
         if not salvage.lost:
             salvage.damage = (f'rosbags cannot use its summary ({_one_line(err)}); read by '
@@ -756,6 +801,8 @@ class BagSource:
         """Return the payload decoder of a channel, or raise RecordingError if none exists."""
         if chan.serialization == 'cdr' and chan.msgtype == RANGE_TYPE:
             return decode_range
+        if chan.serialization == 'cdr' and chan.msgtype == ODOMETRY_TYPE:
+            return decode_odometry
         if chan.serialization not in ('cdr', 'ros1'):
             raise self._fail(f'topic {chan.topic} is stored as {chan.serialization!r}, '
                              'which cannot be decoded (expected cdr)')
@@ -802,22 +849,40 @@ class BagSource:
     def _stream(self, backend: _RosbagsBackend | _McapSalvage,
                 decoders: dict[Hashable, tuple[_Channel, Callable[[bytes], Any]]]
                 ) -> Iterator[tuple[str, float, Any]]:
-        """Decode and yield the backend's messages; turn damage into RecordingError."""
+        """Decode and yield the backend's messages; turn damage into RecordingError.
+
+        MCAP storage that rosbags fails on before the first message is read again by
+        scanning (see the module docstring), from the start.
+        """
         stream = backend.iterate(list(decoders))
         try:
             while True:
+                problem: str | None = None
                 try:
                     key, log_ns, raw = next(stream)
                 except StopIteration:
                     break
                 except _FILE_ERRORS as err:
-                    raise self._cut(_one_line(err)) from None
-                chan, decode = decoders[key]
-                try:
-                    message = decode(raw)
-                except _DECODE_ERRORS as err:
-                    raise self._cut(f'a message on {chan.topic} does not decode as '
-                                    f'{chan.msgtype}: {_one_line(err)}') from None
+                    problem, error = _one_line(err), err
+                else:
+                    chan, decode = decoders[key]
+                    try:
+                        message = decode(raw)
+                    except _DECODE_ERRORS as err:
+                        problem = (f'a message on {chan.topic} does not decode as '
+                                   f'{chan.msgtype}: {_one_line(err)}')
+                        error = err
+                if problem is not None:
+                    salvage = self._salvage_unread(backend, error)
+                    if salvage is None:
+                        raise self._cut(problem) from None
+                    stream.close()
+                    topics = {chan.topic for chan, _ in decoders.values()}
+                    backend = salvage
+                    decoders = {chan.key: (chan, self._decoder(chan))
+                                for chan in salvage.channels if chan.topic in topics}
+                    stream = salvage.iterate(list(decoders))
+                    continue
                 self.read_count += 1
                 self._last_ns = log_ns
                 yield chan.topic, _ns_to_s(log_ns), message
@@ -825,6 +890,26 @@ class BagSource:
             stream.close()
         if backend.lost:
             raise self._cut(backend.damage or 'the data section is cut short')
+        listed = sum(chan.count for chan, _ in decoders.values())
+        if isinstance(backend, _RosbagsBackend) and self.read_count < listed:
+            # damage the reader steps over without noticing (a run of zero bytes inside an
+            # MCAP chunk reads as empty records): fewer messages than the recording lists
+            raise self._cut(f'only {self.read_count} of the {listed} messages its index lists '
+                            'on these topics could be read; the storage is damaged')
+
+    def _salvage_unread(self, backend: _RosbagsBackend | _McapSalvage,
+                        err: BaseException) -> _McapSalvage | None:
+        """Return a salvage reader for MCAP storage rosbags failed on before yielding anything
+        (it reads a chunk whole, so damage inside one loses every message of it), or None."""
+        if not isinstance(backend, _RosbagsBackend) or self.read_count or not self._mcap_files:
+            return None
+        salvage = self._try_salvage(self._mcap_files, err)
+        if salvage is not None and not salvage.lost:
+            salvage.damage = (f'rosbags failed while reading ({_one_line(err)}); read by '
+                              'scanning its data section')
+        if salvage is not None:
+            self.damage = salvage.damage
+        return salvage
 
     def _cut(self, reason: str) -> RecordingError:
         """Return the error for storage that stops being readable partway."""

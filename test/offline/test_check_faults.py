@@ -1,9 +1,12 @@
 """`sonar-guard check` on recordings with faults injected at known times, in every format."""
 from __future__ import annotations
 
+from contextlib import closing
 import json
 import math
 from pathlib import Path
+import shutil
+import sqlite3
 import subprocess
 import sys
 
@@ -235,3 +238,142 @@ def test_recording_without_readings_exits_2(recordings, tmp_path, capsys):
     code, report = run_json(capsys, bag, '--params', params)
     assert code == 2
     assert 'no readings' in report['summary']['incomplete'][0]['reason']
+
+
+# ---------------------------------------------------------------------------------------------
+# Corrupted (not truncated) storage: bytes overwritten in place, the file keeps its size.
+
+def _sqlite_pages(bag: Path) -> None:
+    """Overwrite three whole pages in the middle of the .db3 with a byte pattern."""
+    db = bagkit.storage_file(bag)
+    data = db.read_bytes()
+    # SQLite file format (sqlite.org/fileformat.html, 1.3): the page size is the big-endian
+    # 2-byte value at offset 16 of the header
+    page = int.from_bytes(data[16:18], 'big')
+    middle = len(data) // page // 2
+    pattern = bytes((37 * i + 11) % 256 for i in range(3 * page))
+    bagkit.overwrite(db, middle * page, pattern)
+
+
+def _sqlite_blob(bag: Path) -> None:
+    """Overwrite the CDR encapsulation header of one Range payload stored in the .db3."""
+    db = bagkit.storage_file(bag)
+    with closing(sqlite3.connect(db)) as conn:  # rosbag2 sqlite3 schema: messages, topics
+        (payload,) = conn.execute(
+            'SELECT m.data FROM messages m JOIN topics t ON t.id = m.topic_id '
+            "WHERE t.name = '/sonar/ahead' ORDER BY m.timestamp LIMIT 1 OFFSET 250").fetchone()
+    data = db.read_bytes()
+    assert data.count(payload) == 1  # stamps make every payload unique
+    # a CDR payload starts with its 4-byte encapsulation header (00 01 00 00: little-endian
+    # CDR, the representation identifier of the OMG DDS-RTPS / DDS-XTypes specifications;
+    # section numbers from memory); ff ff ff ff is no encapsulation at all
+    bagkit.overwrite(db, data.find(payload), b'\xff\xff\xff\xff')
+
+
+def _mcap_middle(bag: Path) -> None:
+    """Overwrite 4 KiB in the middle of the .mcap with 0xff (longer than any record, so at
+    least one record header inside the chunk is destroyed)."""
+    mcap = bagkit.storage_file(bag)
+    bagkit.overwrite(mcap, mcap.stat().st_size // 2, b'\xff' * 4096)
+
+
+def _mcap_opcode(bag: Path) -> None:
+    """Overwrite the opcode of the message record nearest the middle with 0x00: readers skip
+    records of unknown opcodes (mcap.dev/spec), so one message goes missing without an error
+    from the reader."""
+    mcap = bagkit.storage_file(bag)
+    middle = mcap.stat().st_size // 2
+    messages = [at for at, op, _ in bagkit.mcap_chunk_records(mcap) if op == 0x05]
+    bagkit.overwrite(mcap, min(messages, key=lambda at: abs(at - middle)), b'\x00')
+
+
+CORRUPTIONS = {  # name: (storage, damage, whether messages before the damage are readable)
+    'sqlite3-pages': ('sqlite3', _sqlite_pages, False),
+    'sqlite3-blob': ('sqlite3', _sqlite_blob, True),
+    'mcap-middle': ('mcap', _mcap_middle, True),
+    'mcap-opcode': ('mcap', _mcap_opcode, True),
+}
+
+
+def _corrupted_copy(bags: dict, tmp_path: Path, name: str) -> Path:
+    storage, damage, _ = CORRUPTIONS[name]
+    bag = tmp_path / f'damaged_{storage}'
+    shutil.copytree(bags[storage], bag)
+    for p in bag.iterdir():  # keep metadata.yaml pointing at the renamed storage file
+        if p.suffix in ('.mcap', '.db3'):
+            p.rename(bag / f'{bag.name}{p.suffix}')
+    meta = bag / 'metadata.yaml'
+    meta.write_text(meta.read_text(encoding='utf-8').replace(bags[storage].name, bag.name),
+                    encoding='utf-8')
+    damage(bag)
+    return bag
+
+
+def assert_outputs_whole_or_absent(folder: Path, json_path: Path, html_path: Path) -> None:
+    """Each report file is complete or not there, and no temporary file is left behind."""
+    if json_path.exists():
+        report = json.loads(json_path.read_text(encoding='utf-8'))
+        assert report['summary']['exit_code'] == 2
+    if html_path.exists():
+        assert html_path.read_text(encoding='utf-8').rstrip().endswith('</html>')
+    leftovers = [p.name for p in folder.iterdir() if p.name.endswith('.tmp')]
+    assert not leftovers
+
+
+@pytest.mark.parametrize('name', sorted(CORRUPTIONS))
+def test_corrupted_storage_exits_2_with_one_line_and_reports_what_was_readable(
+        recordings, tmp_path, capsys, name):
+    """Bytes overwritten inside a recording: exit 2, one error line naming it, no traceback,
+    whole reports (or none), and the messages before the damage still checked."""
+    params, bags = recordings
+    bag = _corrupted_copy(bags, tmp_path, name)
+    out = tmp_path / 'out'
+    out.mkdir()
+    json_path, html_path = out / 'report.json', out / 'report.html'
+    code = main(['check', str(bag), '--params', str(params), '--json', str(json_path),
+                 '--html', str(html_path), '--quiet'])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert 'Traceback' not in err
+    errors = [line for line in err.splitlines() if line.startswith('sonar-guard:')]
+    assert len(errors) == 1 and bag.name in errors[0], err
+    assert_outputs_whole_or_absent(out, json_path, html_path)
+    summary = json.loads(json_path.read_text(encoding='utf-8'))['summary']
+    _, _, readable = CORRUPTIONS[name]
+    if readable:  # checked up to the damage and reported as incomplete
+        assert summary['checked'] == 1 and summary['readings'] > 0
+        assert 'corrupted after' in summary['incomplete'][0]['reason']
+    else:  # SQLite refuses a damaged database at open: nothing is readable
+        assert summary['checked'] == 0
+        assert 'damaged' in summary['unusable'][0]['reason']
+
+
+def test_mcap_damaged_mid_file_is_checked_up_to_the_damage(recordings, tmp_path, capsys):
+    """The messages before the overwritten middle of a single-chunk MCAP are still checked:
+    about half the readings, and the faults that lie in the first half are found."""
+    params, bags = recordings
+    _, clean = run_json(capsys, bags['mcap'], '--params', params)
+    bag = _corrupted_copy(bags, tmp_path, 'mcap-middle')
+    code, report = run_json(capsys, bag, '--params', params)
+    assert code == 2
+    share = report['summary']['readings'] / clean['summary']['readings']
+    assert 0.3 < share < 0.7, share
+    found = {(e['kind'], e['sensor']) for e in report['events']}
+    assert {('blind', 'ahead'), ('no_echo', 'ahead'), ('stale', 'behind')} <= found
+
+
+def test_corrupted_mcap_from_the_command_line_shows_no_traceback(recordings, tmp_path):
+    """The installed command, in its own process: exit 2, one line on stderr, whole reports."""
+    params, bags = recordings
+    bag = _corrupted_copy(bags, tmp_path, 'mcap-middle')
+    storage = bagkit.storage_file(bag)
+    json_path, html_path = tmp_path / 'r.json', tmp_path / 'r.html'
+    proc = subprocess.run([sys.executable, '-m', 'sonar_guard', 'check', str(storage),
+                           '--params', str(params), '--json', str(json_path), '--html',
+                           str(html_path), '--quiet'],
+                          capture_output=True, text=True, cwd=REPO, timeout=300)
+    assert proc.returncode == 2, proc.stderr
+    assert 'Traceback' not in proc.stderr
+    errors = [line for line in proc.stderr.splitlines() if line.startswith('sonar-guard:')]
+    assert len(errors) == 1, proc.stderr
+    assert_outputs_whole_or_absent(tmp_path, json_path, html_path)
