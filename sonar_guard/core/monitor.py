@@ -398,11 +398,14 @@ class Monitor:
     def on_odometry(self, sample: OdometrySample) -> None:
         """Take body velocity from odometry; dead-reckon pose and remembered obstacles."""
         self._advance(sample.arrival_s)
-        values = (sample.stamp_s, sample.vx_mps, sample.vy_mps, sample.wz_radps)
+        values = (sample.stamp_s, sample.vx_mps, sample.vy_mps, sample.wz_radps,
+                  sample.arrival_s)
         if not all(math.isfinite(v) for v in values):
+            # refused whole: a non-finite arrival would keep odometry 'fresh' for ever
             self._stretch(None, 'invalid', sample.arrival_s,
-                          f'odometry not finite: vx={sample.vx_mps!r} vy={sample.vy_mps!r} '
-                          f'wz={sample.wz_radps!r}')
+                          f'odometry not finite: stamp={sample.stamp_s!r} '
+                          f'vx={sample.vx_mps!r} vy={sample.vy_mps!r} wz={sample.wz_radps!r} '
+                          f'arrival={sample.arrival_s!r}')
             return
         self._close(None, 'invalid')
         previous = self._odom

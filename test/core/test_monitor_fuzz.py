@@ -340,8 +340,8 @@ class Model:
 
     def on_odometry(self, sample: OdometrySample) -> None:
         if all(math.isfinite(v) for v in (sample.stamp_s, sample.vx_mps, sample.vy_mps,
-                                          sample.wz_radps)):
-            self.odom = sample
+                                          sample.wz_radps, sample.arrival_s)):
+            self.odom = sample  # a sample with any non-finite field is refused whole
 
     def on_tick(self) -> None:
         if self.odom is not None and math.hypot(self.odom.vx_mps, self.odom.vy_mps) > STILL_MPS:
@@ -412,10 +412,6 @@ speed = st.sampled_from([0.0, 0.01, 0.0199, 0.021, 0.3, 1.0, 2.5, -0.3, -1.0, -2
                          -1e300, math.nan, math.inf, -math.inf])
 absolute = st.one_of(st.sampled_from([math.nan, math.inf, -math.inf, 0.0, -1.0, 1e300, 999.0,
                                       1000.4]), st.floats(998.0, 1003.0))
-# odometry arriving at +inf counts as fresh for ever: a known engine bug with its own strict
-# xfail below (test_odometry_arriving_at_infinity_does_not_stay_fresh); left out here so that
-# the fuzz keeps checking everything else
-odom_arrival = absolute.filter(lambda t: t != math.inf)
 multi_op = st.one_of(
     st.tuples(st.just('read'), st.sampled_from(MULTI_NAMES), time_step, any_range, delay),
     st.tuples(st.just('round'), time_step, st.tuples(*[any_range] * len(MULTI_NAMES)),
@@ -423,7 +419,7 @@ multi_op = st.one_of(
     st.tuples(st.just('odom'), time_step, speed, speed, speed, delay),
     st.tuples(st.just('tick'), time_step),
     st.tuples(st.just('raw'), st.sampled_from(MULTI_NAMES), absolute, absolute, any_range),
-    st.tuples(st.just('raw_odom'), absolute, odom_arrival, speed),
+    st.tuples(st.just('raw_odom'), absolute, absolute, speed),
 )
 
 
@@ -592,7 +588,7 @@ def test_the_invariant_bites():
 
 
 # ---------------------------------------------------------------------------------------------
-# Engine bugs the fuzz found: minimal reproducers, strict xfail until the engine is fixed.
+# Engine bugs the fuzz found, kept as minimal reproducers.
 
 def _silent_odometry(arrival_s: float):
     """One odometry sample arriving at ``arrival_s``, then 2 s of readings and no odometry;
@@ -610,15 +606,10 @@ def _silent_odometry(arrival_s: float):
 
 @pytest.mark.parametrize('arrival_s', [
     1000.0,  # control: an ordinary arrival time, as the node and the checker pass
-    pytest.param(math.inf, marks=pytest.mark.xfail(strict=True, reason=(
-        'engine bug: Monitor.on_odometry does not check arrival_s; a sample that arrived at '
-        '+inf passes `now - arrival <= odom_stale_after` for ever, so 2 s without odometry '
-        'still counts as fresh and the limit keeps rising (0.97 m/s after 2 s) instead of '
-        'falling to fallback_speed (0)'))),
-    pytest.param(math.nan, marks=pytest.mark.xfail(strict=True, reason=(
-        'engine bug: Monitor.on_odometry does not check arrival_s; with a NaN arrival the limit '
-        'falls back, but tick() compares `now - nan > odom_stale_after` (always False), so no '
-        'stale finding for the odometry is ever reported'))),
+    # found by the fuzz: a sample that arrived at +inf once stayed 'fresh' for ever (the limit
+    # rose to 0.97 m/s with no odometry for 2 s), and a NaN arrival never reported stale
+    math.inf,
+    math.nan,
 ])
 def test_odometry_that_stops_counts_as_stale_whatever_its_arrival_time(arrival_s):
     """Odometry silent for 2 s (odom_stale_after 0.25 s): not fresh, limit at fallback_speed,
