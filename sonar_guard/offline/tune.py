@@ -252,12 +252,20 @@ def propose(config: Config, ev: Evidence) -> list[Proposal]:
     if gaps:
         worst = max(gaps)
         value = round(max(_ceil_to(worst * _STALE_HEADROOM, 0.01), 2 * max(medians)), 3)
+        # a reading must be able to arrive late before it is stale: stay above every
+        # late_after, or the proposed file would not load
+        late = max(s.late_after_s for s in config.sensors)
+        kept_above = ''
+        if value <= late:
+            value = round(_ceil_to(late + 0.005, 0.01), 3)
+            kept_above = f'; kept above late_after {late:g} s'
         current = config.limits.stale_after_s
         if abs(value - current) > 0.005:
             out.append(Proposal(
                 'limits.stale_after', current, value,
                 f'worst gap between readings {worst * 1e3:.0f} ms x {_STALE_HEADROOM:g} '
-                f'headroom (median period {float(np.median(medians)) * 1e3:.0f} ms)',
+                f'headroom (median period {float(np.median(medians)) * 1e3:.0f} ms)'
+                f'{kept_above}',
                 looser=value > current))
         slots = len({s.slot for s in config.sensors})
         cycle = float(np.median(medians))

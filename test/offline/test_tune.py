@@ -176,3 +176,17 @@ def test_one_sample_speed_steps_are_not_braking(tmp_path):
     evidence = gather([str(bag)], config)
     assert evidence.decels == []
     assert 'robot.decel' not in by_key(propose(config, evidence))
+
+
+def test_tighter_stale_after_stays_above_late_after_so_the_output_loads(tmp_path):
+    """A recording whose readings come faster than late_after (bagkit: 10 ms periods,
+    late_after 0.1 s) must not get a stale_after at or below late_after: the config rule
+    late_after < stale_after would refuse the proposed file."""
+    import bagkit
+
+    params = bagkit.write_params(tmp_path / 'params.yaml')
+    bag = bagkit.write_scenario(tmp_path / 'clean', faults=False)
+    out = tmp_path / 'tuned.yaml'
+    assert main(['tune', str(bag), '--params', str(params), '-o', str(out)]) == 0
+    tuned = load_config_file(out)
+    assert all(s.late_after_s < tuned.limits.stale_after_s for s in tuned.sensors)
