@@ -282,7 +282,14 @@ def main(args: Sequence[str] | None = None) -> int:
             for problem in err.problems:
                 logger.error(f'  - {problem}')
             return 2
-        _spin(node)
+        executor = SingleThreadedExecutor()
+        executor.add_node(node)
+        try:
+            _spin(node, executor)
+        finally:
+            # let go of the node's handles before they are destroyed (clean, crash-free exit)
+            executor.remove_node(node)
+            executor.shutdown(timeout_sec=1.0)
     except (KeyboardInterrupt, ExternalShutdownException):
         pass
     finally:
@@ -292,14 +299,12 @@ def main(args: Sequence[str] | None = None) -> int:
     return 0
 
 
-def _spin(node: SonarGuardNode) -> None:
+def _spin(node: SonarGuardNode, executor: SingleThreadedExecutor) -> None:
     """Spin until shutdown; a message that cannot be taken is logged, not fatal.
 
     rclpy can fail to take a message when SIGINT arrives in the middle of it (the pending
     interrupt breaks the conversion); the node then goes on and sees the shutdown next turn.
     """
-    executor = SingleThreadedExecutor()
-    executor.add_node(node)
     failures = 0
     while rclpy.ok():
         try:
