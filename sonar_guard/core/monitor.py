@@ -233,6 +233,8 @@ class Monitor:
         self.clock_resets = 0
         self._closed: list[Event] = []
         self._open: dict[tuple[str, str | None], _OpenEvent] = {}
+        # the open kinds of each sensor, in opening order (an index into _open)
+        self._open_kinds: dict[str | None, dict[str, None]] = {}
         self._start = math.nan
         self._heard_floor = -math.inf  # no sensor was heard last before this (s): lower bound
         self._reset_motion()
@@ -329,7 +331,7 @@ class Monitor:
             self._close(name, 'slot_clash')
         self._apply(st, check)
         if v is Verdict.OK and not check.late:  # the common case: nothing opens
-            if self._open:
+            if self._open_kinds.get(name):
                 self._close_other_stretches(name, keep=())
             return check
         keep = set()
@@ -631,21 +633,25 @@ class Monitor:
         ev = self._open.get((kind, sensor))
         if ev is None:
             self._open[(kind, sensor)] = _OpenEvent(kind, sensor, t, detail)
+            self._open_kinds.setdefault(sensor, {})[kind] = None
         else:
             ev.t_last = max(ev.t_last, t)
 
     def _close(self, sensor: str | None, kind: str, t_end: float | None = None) -> None:
         ev = self._open.pop((kind, sensor), None)
         if ev is not None:
+            del self._open_kinds[sensor][kind]
             end = ev.t_last if t_end is None or not math.isfinite(t_end) else max(ev.t_last,
                                                                                    t_end)
             self._closed.append(Event(kind, sensor, ev.t_start, end, ev.detail))
 
     def _close_other_stretches(self, sensor: str, keep: Iterable[str]) -> None:
+        kinds = self._open_kinds.get(sensor)
+        if not kinds:
+            return
         keep = set(keep) | {'slot_clash'}
-        for kind, who in list(self._open):
-            if who == sensor and kind not in keep:
-                self._close(sensor, kind)
+        for kind in [k for k in kinds if k not in keep]:
+            self._close(sensor, kind)
 
     def _close_all(self, t_end: float | None) -> None:
         for kind, who in list(self._open):

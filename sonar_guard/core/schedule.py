@@ -179,7 +179,7 @@ def _firing_time(stamp_s: float, range_m: float, timeout_s: float, max_range_m: 
 class ClashDetector:
     """Flag sensors of different slots whose pulses are in the air at the same time."""
 
-    __slots__ = ('_last_fire', '_max_range', '_slot', '_timeouts')
+    __slots__ = ('_last_fire', '_max_range', '_slot', '_timeouts', '_window')
 
     def __init__(self, sensors: Sequence[SensorConfig]) -> None:
         self._slot = {s.name: s.slot for s in sensors}
@@ -187,6 +187,8 @@ class ClashDetector:
         self._timeouts = {s.name: echo_timeout(s.max_range_m, s.air_temperature_c)
                           for s in sensors}
         self._last_fire: dict[str, float] = {}
+        # no clash is ever farther apart than this (the longest echo timeout's share), s
+        self._window = _CLASH_FRACTION * max(self._timeouts.values(), default=0.0)
 
     def reset(self) -> None:
         """Forget every firing (after a clock jump)."""
@@ -207,7 +209,7 @@ class ClashDetector:
         slots, timeouts = self._slot, self._timeouts
         slot = slots[name]
         worst: tuple[str, float] | None = None
-        nearest = math.inf
+        nearest = self._window
         for other, other_fire in last_fire.items():
             gap = fire - other_fire
             size = gap if gap >= 0 else -gap
