@@ -27,7 +27,7 @@ __all__ = [
     'SensorSummary',
 ]
 
-_PENDING_MAX = 8192  # samples held before a bulk flush
+_PENDING_MAX = 1024  # samples held before a bulk flush (bounded memory: ~120 B each)
 
 VERDICT_CODES: dict[str, int] = {v.value: i for i, v in enumerate(Verdict)}
 """Small integer per verdict, for compact series (order of the Verdict enum)."""

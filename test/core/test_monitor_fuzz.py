@@ -10,6 +10,7 @@ import copy
 from dataclasses import dataclass
 from functools import cache
 import math
+import os
 
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -25,9 +26,14 @@ NAMES = CONFIG.sensor_names
 MAX = CONFIG.limits.max_speed_mps
 
 
+# SONAR_GUARD_FUZZ_SCALE=20 runs twenty times the streams, new random ones each run (local use)
+_SCALE = float(os.environ.get('SONAR_GUARD_FUZZ_SCALE', '0') or 0)
+
+
 def fuzz(examples: int) -> settings:
     """Return the settings of a fuzz test: ``examples`` streams, the same on every run."""
-    return settings(max_examples=examples, deadline=None, derandomize=True, database=None,
+    return settings(max_examples=max(1, round(examples * (_SCALE or 1))), deadline=None,
+                    derandomize=not _SCALE, database=None,
                     suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 
 
