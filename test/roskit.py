@@ -213,3 +213,26 @@ class Rig:
         msg = Twist()
         msg.linear.x, msg.angular.z = float(vx), float(wz)
         self.cmd_pub.publish(msg)
+
+
+def start_node(test_node: Node, config: Config, log_path: Path,
+               extra: Mapping[str, Any] | None = None, *,
+               before_wait: Callable[[Rig], None] | None = None,
+               best_effort: tuple[str, ...] = (), timeout_s: float = 30.0
+               ) -> tuple[NodeProcess, Rig]:
+    """Start the node with the shipped parameters and a Rig; wait for its first limit.
+
+    ``before_wait(rig)`` runs before the wait (to start a simulated clock, say). Raises
+    AssertionError with the node's output when no allowed_speed arrives in ``timeout_s``.
+    """
+    proc = NodeProcess(DEFAULT_PARAMS, extra, log_path=log_path)
+    rig = Rig(test_node, config, best_effort=best_effort)
+    if before_wait is not None:
+        before_wait(rig)
+    try:
+        # the node publishes allowed_speed at publish_rate from the start: wait for the first
+        rig.run_until(lambda: rig.limits, timeout_s=timeout_s)
+    except AssertionError:
+        proc.interrupt()
+        raise AssertionError('node never published allowed_speed:\n' + proc.output()) from None
+    return proc, rig

@@ -19,7 +19,7 @@ from diagnostic_msgs.msg import DiagnosticStatus
 from rcl_interfaces.msg import Parameter as ParameterMsg
 from rcl_interfaces.msg import ParameterType, ParameterValue
 from rcl_interfaces.srv import SetParameters
-from roskit import DEFAULT_PARAMS, NodeProcess, Rig, isolate_ros_environment, rclpy
+from roskit import DEFAULT_PARAMS, NodeProcess, Rig, isolate_ros_environment, rclpy, start_node
 
 from sonar_guard.cli import load_config_file
 from sonar_guard.core.monitor import Monitor, OdometrySample
@@ -49,17 +49,10 @@ def started(test_node, tmp_path):
     procs: list[NodeProcess] = []
 
     def start(_before_wait=None, _best_effort=(), **extra):
-        proc = NodeProcess(DEFAULT_PARAMS, {'gate_commands': True, **extra},
-                           log_path=tmp_path / f'node{len(procs)}.log')
+        proc, rig = start_node(test_node, CONFIG, tmp_path / f'node{len(procs)}.log',
+                               {'gate_commands': True, **extra}, before_wait=_before_wait,
+                               best_effort=_best_effort)
         procs.append(proc)
-        rig = Rig(test_node, CONFIG, best_effort=_best_effort)
-        if _before_wait is not None:
-            _before_wait(rig)
-        try:
-            # the node publishes allowed_speed at 20 Hz from the start: wait for the first one
-            rig.run_until(lambda: rig.limits, timeout_s=30.0)
-        except AssertionError:
-            raise AssertionError('node never published allowed_speed:\n' + proc.output()) from None
         return proc, rig
 
     yield start

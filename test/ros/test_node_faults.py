@@ -37,7 +37,15 @@ except ImportError:  # not POSIX: killed helpers' shared memory is left as it is
 from nav_msgs.msg import Odometry
 from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy, qos_profile_sensor_data
 from rclpy.subscription import Subscription
-from roskit import DEFAULT_PARAMS, REPO, NodeProcess, Rig, isolate_ros_environment, rclpy
+from roskit import (
+    DEFAULT_PARAMS,
+    REPO,
+    NodeProcess,
+    Rig,
+    isolate_ros_environment,
+    rclpy,
+    start_node,
+)
 from sensor_msgs.msg import Range
 from std_msgs.msg import Float64
 
@@ -278,15 +286,9 @@ def started(test_node, tmp_path):
     procs: list[NodeProcess] = []
 
     def start(_before_wait=None, **extra):
-        proc = NodeProcess(DEFAULT_PARAMS, extra, log_path=tmp_path / f'node{len(procs)}.log')
+        proc, rig = start_node(test_node, CONFIG, tmp_path / f'node{len(procs)}.log', extra,
+                               before_wait=_before_wait, timeout_s=STARTUP_TIMEOUT_S)
         procs.append(proc)
-        rig = Rig(test_node, CONFIG)
-        if _before_wait is not None:
-            _before_wait(rig)
-        try:
-            rig.run_until(lambda: rig.limits, timeout_s=STARTUP_TIMEOUT_S)
-        except AssertionError:
-            raise AssertionError('node never published allowed_speed:\n' + proc.output()) from None
         return proc, rig
 
     yield start
