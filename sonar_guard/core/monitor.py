@@ -28,7 +28,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 import math
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -68,8 +68,7 @@ _STRETCH_KINDS = {Verdict.BLIND: 'blind', Verdict.INVALID: 'invalid', Verdict.ST
                   Verdict.STUCK: 'stuck'}  # 'late' follows ReadingCheck.late, any verdict
 
 
-@dataclass(frozen=True, slots=True)
-class OdometrySample:
+class OdometrySample(NamedTuple):
     """Body velocity from nav_msgs/Odometry twist (m/s, rad/s) and its times (s)."""
 
     stamp_s: float
@@ -95,8 +94,7 @@ class Event:
                 't_end': self.t_end, 'detail': self.detail}
 
 
-@dataclass(frozen=True, slots=True)
-class Decision:
+class Decision(NamedTuple):
     """The speed limit at one instant and why."""
 
     time_s: float

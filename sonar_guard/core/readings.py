@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 import enum
 import math
+from typing import NamedTuple
 
 from sonar_guard.core.acoustics import blind_range
 from sonar_guard.core.config import SensorConfig
@@ -52,8 +53,7 @@ class Verdict(enum.Enum):
 _TRUSTED = frozenset({Verdict.OK, Verdict.BLIND, Verdict.NO_ECHO, Verdict.LATE})
 
 
-@dataclass(frozen=True, slots=True)
-class RangeReading:
+class RangeReading(NamedTuple):
     """One sensor_msgs/Range reading as the core sees it.
 
     ``stamp_s`` is the header stamp (when the echo returned), ``arrival_s`` when it reached the
@@ -84,8 +84,7 @@ class Motion:
     theta_rad: float = 0.0
 
 
-@dataclass(frozen=True, slots=True)
-class ReadingCheck:
+class ReadingCheck(NamedTuple):
     """The verdict on one reading, with a reason that carries the numbers."""
 
     sensor: str

@@ -223,7 +223,7 @@ def decision_with(**changes):
     base = Decision(time_s=1.0, limit_mps=1.0, target_mps=1.0, heading_rad=0.0, reason='clear',
                     limiting_sensor=None, covering=('ahead',), speed_mps=0.2,
                     odometry_fresh=True)
-    return dataclasses.replace(base, **changes)
+    return base._replace(**changes)
 
 
 @pytest.mark.parametrize(('decision', 'expected'), [
