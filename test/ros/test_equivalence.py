@@ -16,6 +16,7 @@ import pytest
 pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
 
 import bagkit
+from measured import report
 from nav_msgs.msg import Odometry
 from rosgraph_msgs.msg import Clock
 from roskit import LIMIT_QOS, NodeProcess, isolate_ros_environment, rclpy
@@ -143,7 +144,7 @@ def test_live_node_and_offline_check_agree_on_findings_and_limit(tmp_path):
     horizon = bagkit.T0 + SIM_END - 1.0  # findings still open at the end differ by design
     off = [(e.kind, e.sensor, e.t_start) for e in off_events if e.t_end < horizon]
     live = [(k, s, t0) for k, s, t0, t1 in live_events if t1 < horizon]
-    print(f'\noffline findings {len(off)}, live findings {len(live)}')
+    report(f'\noffline findings {len(off)}, live findings {len(live)}')
     for kind, sensor, t0 in off:
         assert any(k == kind and s == sensor and abs(t - t0) <= PERIOD + 0.02
                    for k, s, t in live), (kind, sensor, t0 - bagkit.T0, live)
@@ -163,7 +164,7 @@ def test_live_node_and_offline_check_agree_on_findings_and_limit(tmp_path):
         checked += 1
         if not min(near) - 0.02 <= v <= max(near) + 0.02:
             misses.append((round(t - bagkit.T0, 3), v, min(near), max(near)))
-    print(f'limit samples compared: {checked}, outside one period: {len(misses)}')
+    report(f'limit samples compared: {checked}, outside one period: {len(misses)}')
     assert checked > 100
     assert len(misses) <= max(2, checked // 100), misses[:10]
     assert not math.isnan(sum(v for _, v in live_limits))

@@ -16,6 +16,7 @@ import pytest
 pytest.importorskip('rclpy', reason='rclpy is not installed (make venv brings it)')
 
 from diagnostic_msgs.msg import DiagnosticStatus
+from measured import report
 from rcl_interfaces.msg import Parameter as ParameterMsg
 from rcl_interfaces.msg import ParameterType, ParameterValue
 from rcl_interfaces.srv import SetParameters
@@ -107,7 +108,7 @@ def test_obstacle_ahead_gives_the_core_limit(started):
     # the node's reading age lies between 0 and one reading period (plus transport jitter)
     high = core_limit({FRONT: 1.0}, 0.05, age_s=0.0)
     low = core_limit({FRONT: 1.0}, 0.05, age_s=READING_PERIOD_S + 0.03)
-    print(f'\nobstacle at 1.0 m: node {observed:.4f} m/s, core {low:.4f}..{high:.4f} m/s')
+    report(f'\nobstacle at 1.0 m: node {observed:.4f} m/s, core {low:.4f}..{high:.4f} m/s')
     assert low * 0.98 <= observed <= high * 1.02
     assert observed < CONFIG.limits.max_speed_mps
 
@@ -129,14 +130,14 @@ def test_silent_sensor_drops_to_fallback_within_stale_after(started):
     # from the last reading the sensor sent to the first fallback value received
     delay = rig.limits[-1][0] - rig.last_published[FRONT]
     budget = CONFIG.limits.stale_after_s + 0.1
-    print(f'\nsilent {FRONT}: fallback after {delay * 1e3:.0f} ms (budget {budget * 1e3:.0f} ms)')
+    report(f'\nsilent {FRONT}: fallback after {delay * 1e3:.0f} ms (budget {budget * 1e3:.0f} ms)')
     assert delay <= budget
     rig.run_until(lambda: diag_levels(rig).get(f'sonar_guard: {FRONT}') in (
         DiagnosticStatus.STALE[0], DiagnosticStatus.ERROR[0]), timeout_s=5.0)
     # the sensor comes back (a restarted driver): the limit climbs again
     rig.silent.discard(FRONT)
     back = rig.run_until(lambda: rig.limit > 0.3, timeout_s=10.0)
-    print(f'{FRONT} back: limit above 0.3 m/s after {back * 1e3:.0f} ms (rise_rate '
+    report(f'{FRONT} back: limit above 0.3 m/s after {back * 1e3:.0f} ms (rise_rate '
           f'{CONFIG.limits.rise_rate_mps2:g} m/s^2)')
 
 
@@ -147,7 +148,7 @@ def test_stale_odometry_drops_to_fallback(started):
     rig.run_until(lambda: rig.limit > 0.5, timeout_s=30.0)
     rig.odometry_silent = True
     took = rig.run_until(lambda: rig.limit == CONFIG.limits.fallback_speed_mps, timeout_s=10.0)
-    print(f'\nodometry silent: fallback after {took * 1e3:.0f} ms '
+    report(f'\nodometry silent: fallback after {took * 1e3:.0f} ms '
           f'(odom_stale_after {CONFIG.limits.odom_stale_after_s * 1e3:.0f} ms)')
     assert took <= CONFIG.limits.odom_stale_after_s + 0.2
     rig.odometry_silent = False
@@ -257,7 +258,7 @@ def test_node_paused_and_resumed_recovers(started):
         os.kill(proc.proc.pid, signal.SIGCONT)
     mark = len(rig.limits)
     took = rig.run_until(lambda: len(rig.limits) > mark + 10, timeout_s=10.0)
-    print(f'\npaused 1 s: 10 fresh limits {took * 1e3:.0f} ms after SIGCONT')
+    report(f'\npaused 1 s: 10 fresh limits {took * 1e3:.0f} ms after SIGCONT')
     assert all(0.0 <= v <= CONFIG.limits.max_speed_mps for _, v in rig.limits[mark:])
     rig.run_until(lambda: rig.limit > 0.5, timeout_s=15.0)
 
@@ -266,7 +267,7 @@ def test_sigint_exits_cleanly_within_two_seconds(started):
     """Ctrl-C ends the node with exit code 0 in under 2 s."""
     proc, _ = started()
     code, took = proc.interrupt()
-    print(f'\nSIGINT: exit {code} after {took * 1e3:.0f} ms')
+    report(f'\nSIGINT: exit {code} after {took * 1e3:.0f} ms')
     assert code == 0 and took < 2.0
 
 

@@ -34,6 +34,7 @@ try:
 except ImportError:  # not POSIX: killed helpers' shared memory is left as it is
     fcntl = None
 
+from measured import report
 from nav_msgs.msg import Odometry
 from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy, qos_profile_sensor_data
 from rclpy.subscription import Subscription
@@ -331,7 +332,7 @@ def _kill_and_restart(rig: Rig, proc: NodeProcess, heard: Heard, start_helper, w
     matched_at = next(float(line.split()[2]) for _, line in fresh.lines
                       if line.startswith('matched 1'))
     climbed = rig.run_until(lambda: rig.limit > 0.3, timeout_s=10.0)
-    print(f'\nfault: {what} publisher SIGKILLed -> fallback after {ms(after_last)} from its last '
+    report(f'\nfault: {what} publisher SIGKILLed -> fallback after {ms(after_last)} from its last '
           f'message, {ms(fell_at - killed_at)} from the kill (deadline {ms(deadline)}); '
           f'recovered {ms(rose_at - restarted_at)} after restart ({ms(rose_at - matched_at)} '
           f'after it matched the node, deadline '
@@ -418,7 +419,7 @@ def test_looping_sim_clock_resets_every_loop_and_keeps_sane_limits(started):
         assert rise[0] - fresh[0] <= 2 * PUBLISH_PERIOD_S + SLACK_S
         if k + 1 < LOOPS:  # whole loops only: the timer runs on the looping clock
             assert count >= MIN_RATE_SHARE * CONFIG.publish_rate_hz * LOOP_S
-    print(f'\nfault: sim clock looping every {LOOP_S:g} s, {LOOPS} times; limits within '
+    report(f'\nfault: sim clock looping every {LOOP_S:g} s, {LOOPS} times; limits within '
           f'[{min(values):.3f}, {max(values):.3f}] m/s\n' + '\n'.join(lines))
 
 
@@ -510,7 +511,7 @@ def test_range_flood_keeps_the_publish_rate_and_the_node_reacting(started, helpe
     by = 'by send time' if counter.sent else 'by arrival'
     odom_deadline = LIMITS.odom_stale_after_s + PUBLISH_PERIOD_S + SLACK_S
     sensor_deadline = LIMITS.stale_after_s + PUBLISH_PERIOD_S + SLACK_S
-    print(f'\nfault: Range flood {achieved:.0f} msg/s for {end - go:.1f} s '
+    report(f'\nfault: Range flood {achieved:.0f} msg/s for {end - go:.1f} s '
           f'({FLOOD_PROCESSES} processes at nice {FLOOD_NICE}, target {FLOOD_RATE:.0f} msg/s), '
           f'the node took {taken:.0f} Range/s over {t1 - t0:.1f} s around it; allowed_speed '
           f'per 1 s window {windows} {by}, {arrived} by arrival (publish_rate '
