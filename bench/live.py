@@ -64,7 +64,7 @@ from sonar_guard.core.monitor import Monitor, OdometrySample  # noqa: E402
 from sonar_guard.core.readings import RangeReading  # noqa: E402
 from sonar_guard.ros.node import LIMIT_QOS  # noqa: E402
 
-__all__ = ['LiveBenchError', 'main', 'run_live']
+__all__ = ['LiveBenchError', 'describe', 'main', 'run_live']
 
 SENSOR_RATE_HZ = 50.0  # phase 1, every sensor; the probe sensor in both phases
 ODOM_RATE_HZ = 50.0
@@ -741,6 +741,19 @@ def run_live(results: dict, *, seconds: float = 60.0) -> list[tuple[str, str, st
     ]
 
 
+def describe(results: dict) -> str:
+    """Return one line on how the live run went (probes, load, how busy the machine was)."""
+    live = {key[5:]: value for key, value in results.items() if key.startswith('live_')}
+    return (f"probe sensor {live['probe_sensor']}: limit {live['limit_clear_mps']:.3f} -> "
+            f"{live['limit_obstacle_mps']:.3f} m/s; {live['node_n']} node, {live['relay_n']} "
+            f"relay, {live['direct_n']} direct probes at {live['rate_in_1']:,.0f} msg/s; "
+            f"load {live['load_seconds']:.0f} s ({live['load_probes_first']} + "
+            f"{live['load_probes_last']} probes); loader at most "
+            f"{live['loader_worst_lag_s']:.3f} s behind; load average "
+            f"{live['loadavg_before']:.1f} -> {live['loadavg_after']:.1f}; "
+            f"live part took {live['seconds']:.0f} s")
+
+
 def _print_rows(rows: Sequence[tuple[str, str, str]]) -> None:
     width = max(len(r[0]) for r in rows)
     vwidth = max(12, *(len(r[1]) for r in rows))
@@ -767,14 +780,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _role_load(args.rate, args.spec)
     results: dict = {}
     rows = run_live(results, seconds=args.seconds)
-    live = {key[5:]: value for key, value in results.items() if key.startswith('live_')}
-    print(f"\nprobe sensor {live['probe_sensor']}: limit {live['limit_clear_mps']:.3f} -> "
-          f"{live['limit_obstacle_mps']:.3f} m/s; {live['node_n']} node, {live['relay_n']} "
-          f"relay, {live['direct_n']} direct probes at {live['rate_in_1']:,.0f} msg/s; "
-          f"load {live['load_seconds']:.0f} s ({live['load_probes_first']} + "
-          f"{live['load_probes_last']} probes); loader at most {live['loader_worst_lag_s']:.3f} s "
-          f"behind; load average {live['loadavg_before']:.1f} -> {live['loadavg_after']:.1f}; "
-          f"live part took {live['seconds']:.0f} s")
+    print('\n' + describe(results))
     _print_rows(rows)
     if args.json is not None:
         args.json.write_text(json.dumps(results, indent=2) + '\n')

@@ -182,7 +182,11 @@ def main() -> int:
         *live_rows,
         ('core: engine steps per second', f"{results['engine_steps_per_s']:,.0f}", '-'),
     ]
-    print(f"\n{readings:,} readings, {results['messages']:,} messages "
+    print()
+    if live_rows:
+        from live import describe
+        print('live: ' + describe(results))
+    print(f"{readings:,} readings, {results['messages']:,} messages "
           f"({args.minutes:g} min); check took {t_check:.1f} s, rosbags read+deserialize "
           f"{t_deser:.1f} s, raw read {t_raw:.1f} s")
     width = max(len(r[0]) for r in rows)
