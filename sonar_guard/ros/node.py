@@ -135,6 +135,8 @@ class SonarGuardNode(Node):
         self._resets_seen = 0
         self._waiting_for_clock_said = False
         self._last_decision: Decision | None = None
+        # sensors whose readings can move the limit now (all of them until the first decision)
+        self._covering: frozenset[str] = frozenset(self.config.sensor_names)
 
         self.limit_pub = self.create_publisher(Float64, 'allowed_speed', LIMIT_QOS)
         self.diag_pub = self.create_publisher(DiagnosticArray, '/diagnostics', 10)
@@ -184,7 +186,10 @@ class SonarGuardNode(Node):
             self.get_logger().info(line)
         elif line:
             self.get_logger().warning(line)
-        self._decide(now, publish_drop=True)
+        if sensor in self._covering:
+            # decide at once only after a reading that can move the limit (as `check` does);
+            # the publish timer decides for the rest
+            self._decide(now, publish_drop=True)
 
     def _on_odom(self, msg: Odometry) -> None:
         now = self._now()
@@ -207,6 +212,8 @@ class SonarGuardNode(Node):
 
     def _decide(self, now: float, *, publish_drop: bool) -> Decision:
         decision = self.monitor.tick(now)
+        if self._last_decision is None or decision.covering != self._last_decision.covering:
+            self._covering = frozenset(decision.covering)
         self._last_decision = decision
         if self.monitor.clock_resets != self._resets_seen:
             self._resets_seen = self.monitor.clock_resets
