@@ -53,6 +53,10 @@ def isolate_ros_environment() -> dict[str, str]:
     os.environ['ROS_DOMAIN_ID'] = os.environ['SONAR_GUARD_TEST_DOMAIN']
     os.environ['ROS_LOCALHOST_ONLY'] = '1'  # Humble and Jazzy
     os.environ['ROS_AUTOMATIC_DISCOVERY_RANGE'] = 'LOCALHOST'  # Jazzy and newer
+    # UDP on loopback, no shared memory: the fault tests SIGKILL participants, and a killed
+    # Fast DDS process leaves shared-memory ports behind that stalled the others for ~1 s
+    # (and once crashed a node at shutdown). Older Fast DDS ignores the variable.
+    os.environ.setdefault('FASTDDS_BUILTIN_TRANSPORTS', 'UDPv4')
     return dict(os.environ)
 
 
