@@ -53,10 +53,12 @@ def isolate_ros_environment() -> dict[str, str]:
     os.environ['ROS_DOMAIN_ID'] = os.environ['SONAR_GUARD_TEST_DOMAIN']
     os.environ['ROS_LOCALHOST_ONLY'] = '1'  # Humble and Jazzy
     os.environ['ROS_AUTOMATIC_DISCOVERY_RANGE'] = 'LOCALHOST'  # Jazzy and newer
-    # UDP on loopback, no shared memory: the fault tests SIGKILL participants, and a killed
-    # Fast DDS process leaves shared-memory ports behind that stalled the others for ~1 s
-    # (and once crashed a node at shutdown). Older Fast DDS ignores the variable.
-    os.environ.setdefault('FASTDDS_BUILTIN_TRANSPORTS', 'UDPv4')
+    # Fast DDS keeps its shared-memory transport here: with the LOCALHOST range rmw_fastrtps
+    # installs its own shared-memory + UDP transports, so FASTDDS_BUILTIN_TRANSPORTS has no
+    # effect (checked with /proc/self/maps). Tests time the node by when it sent a message
+    # (DDS source timestamp) where rclpy gives it, so a stall of the test process is not
+    # counted against the node.
+    os.environ.setdefault('PYTHONFAULTHANDLER', '1')  # a crashing node prints its stacks
     return dict(os.environ)
 
 
