@@ -87,13 +87,14 @@ class NodeProcess:
         except OSError:
             return ''
 
-    def interrupt(self, timeout_s: float = 10.0) -> tuple[int, float]:
-        """Send SIGINT; return (exit code, seconds it took to exit)."""
+    def interrupt(self, timeout_s: float = 10.0,
+                  sig: signal.Signals = signal.SIGINT) -> tuple[int, float]:
+        """Send SIGINT (or ``sig``); return (exit code, seconds it took to exit)."""
         if self._result is not None:
             return self._result
         start = time.monotonic()
         if self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGINT)
+            self.proc.send_signal(sig)
         try:
             code = self.proc.wait(timeout_s)
         except subprocess.TimeoutExpired:

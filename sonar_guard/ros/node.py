@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from functools import partial
 import math
+import signal
 import sys
 import time
 
@@ -52,6 +53,7 @@ LIMIT_QOS = QoSProfile(depth=1, history=HistoryPolicy.KEEP_LAST,
 """allowed_speed QoS: reliable and latched, so a late subscriber gets the current limit."""
 DIAGNOSTICS_PERIOD_S = 1.0
 MARKER_PERIOD_S = 0.2
+SPIN_TIMEOUT_S = 0.1  # the longest a stop request waits for the spin loop to see it
 
 
 class TransitionLog:
@@ -277,8 +279,9 @@ class SonarGuardNode(Node):
 
 
 def main(args: Sequence[str] | None = None) -> int:
-    """Run the node until SIGINT; return 0, or 2 when the parameters are unusable."""
-    rclpy.init(args=args)
+    """Run the node until SIGINT or SIGTERM; return 0, or 2 when the parameters are unusable."""
+    _init_without_signal_thread(args)
+    stop = _StopRequest()
     node = None
     try:
         try:
@@ -292,7 +295,7 @@ def main(args: Sequence[str] | None = None) -> int:
         executor = SingleThreadedExecutor()
         executor.add_node(node)
         try:
-            _spin(node, executor)
+            _spin(node, executor, stop)
         finally:
             # let go of the node's handles before they are destroyed (clean, crash-free exit)
             executor.remove_node(node)
@@ -306,21 +309,54 @@ def main(args: Sequence[str] | None = None) -> int:
     return 0
 
 
-def _spin(node: SonarGuardNode, executor: SingleThreadedExecutor) -> None:
-    """Spin until shutdown; a message that cannot be taken is logged, not fatal.
+class _StopRequest:
+    """SIGINT and SIGTERM ask the spin loop to end; the main thread then shuts down in order.
 
-    rclpy can fail to take a message when SIGINT arrives in the middle of it (the pending
-    interrupt breaks the conversion); the node then goes on and sees the shutdown next turn.
+    rclpy's own handlers shut the context down from a separate thread while the main thread
+    may still be inside a callback or destroying entities; a node here crashed (SIGSEGV) at
+    exit now and then that way. Handling the signals in Python keeps the whole shutdown on the
+    main thread: the spin loop sees the request within one spin timeout.
+    """
+
+    def __init__(self) -> None:
+        self.signal: int | None = None
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            signal.signal(sig, self._request)
+
+    def _request(self, signum: int, _frame: object) -> None:
+        if self.signal is not None:  # asked twice: stop waiting for the loop
+            raise KeyboardInterrupt
+        self.signal = signum
+
+    def __bool__(self) -> bool:
+        return self.signal is not None
+
+
+def _init_without_signal_thread(args: Sequence[str] | None) -> None:
+    """rclpy.init without rclpy's signal handlers (where this rclpy can leave them out)."""
+    try:
+        from rclpy.signals import SignalHandlerOptions
+    except ImportError:  # an rclpy without the option: its own handlers it is
+        rclpy.init(args=list(args) if args is not None else None)
+        return
+    rclpy.init(args=list(args) if args is not None else None,
+               signal_handler_options=SignalHandlerOptions.NO)
+
+
+def _spin(node: SonarGuardNode, executor: SingleThreadedExecutor, stop: _StopRequest) -> None:
+    """Spin until a stop request or shutdown; a message that cannot be taken is logged.
+
+    rclpy can fail to take a message when a signal arrives in the middle of it (the pending
+    interrupt breaks the conversion); the node then goes on and sees the stop next turn.
     """
     failures = 0
-    while rclpy.ok():
+    while not stop and rclpy.ok():
         try:
-            executor.spin_once(timeout_sec=0.1)
+            executor.spin_once(timeout_sec=SPIN_TIMEOUT_S)
         except RuntimeError as err:
             failures += 1
             if failures <= 3 or failures % 1000 == 0:
                 node.get_logger().warning(f'could not take a message ({failures}): {err}')
-
 
 if __name__ == '__main__':
     sys.exit(main())

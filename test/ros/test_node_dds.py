@@ -263,11 +263,13 @@ def test_node_paused_and_resumed_recovers(started):
     rig.run_until(lambda: rig.limit > 0.5, timeout_s=15.0)
 
 
-def test_sigint_exits_cleanly_within_two_seconds(started):
-    """Ctrl-C ends the node with exit code 0 in under 2 s."""
+@pytest.mark.parametrize('sig', [signal.SIGINT, signal.SIGTERM], ids=['SIGINT', 'SIGTERM'])
+def test_stop_signal_exits_cleanly_within_two_seconds(started, sig):
+    """Ctrl-C (SIGINT) or a service manager's SIGTERM ends the node with exit code 0 in
+    under 2 s."""
     proc, _ = started()
-    code, took = proc.interrupt()
-    report(f'\nSIGINT: exit {code} after {took * 1e3:.0f} ms')
+    code, took = proc.interrupt(sig=sig)
+    report(f'\n{sig.name}: exit {code} after {took * 1e3:.0f} ms')
     assert code == 0 and took < 2.0
 
 
