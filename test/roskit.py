@@ -55,8 +55,8 @@ def isolate_ros_environment() -> dict[str, str]:
     os.environ['ROS_AUTOMATIC_DISCOVERY_RANGE'] = 'LOCALHOST'  # Jazzy and newer
     # Fast DDS keeps its shared-memory transport here: with the LOCALHOST range rmw_fastrtps
     # installs its own shared-memory + UDP transports, so FASTDDS_BUILTIN_TRANSPORTS has no
-    # effect (checked with /proc/self/maps). Tests time the node by when it sent a message
-    # (DDS source timestamp) where rclpy gives it, so a stall of the test process is not
+    # effect (checked with /proc/self/maps). The kill tests time the node by when it sent a
+    # limit (DDS source timestamp) where rclpy gives it, so a stall of the test process is not
     # counted against the node.
     os.environ.setdefault('PYTHONFAULTHANDLER', '1')  # a crashing node prints its stacks
     return dict(os.environ)

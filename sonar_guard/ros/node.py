@@ -319,28 +319,25 @@ class _StopRequest:
     """
 
     def __init__(self) -> None:
-        self.signal: int | None = None
+        self.requested = False
         for sig in (signal.SIGINT, signal.SIGTERM):
             signal.signal(sig, self._request)
 
-    def _request(self, signum: int, _frame: object) -> None:
-        if self.signal is not None:  # asked twice: stop waiting for the loop
+    def _request(self, _signum: int, _frame: object) -> None:
+        if self.requested:  # asked twice: stop waiting for the loop
             raise KeyboardInterrupt
-        self.signal = signum
-
-    def __bool__(self) -> bool:
-        return self.signal is not None
+        self.requested = True
 
 
 def _init_without_signal_thread(args: Sequence[str] | None) -> None:
     """rclpy.init without rclpy's signal handlers (where this rclpy can leave them out)."""
+    argv = list(args) if args is not None else None
     try:
         from rclpy.signals import SignalHandlerOptions
     except ImportError:  # an rclpy without the option: its own handlers it is
-        rclpy.init(args=list(args) if args is not None else None)
+        rclpy.init(args=argv)
         return
-    rclpy.init(args=list(args) if args is not None else None,
-               signal_handler_options=SignalHandlerOptions.NO)
+    rclpy.init(args=argv, signal_handler_options=SignalHandlerOptions.NO)
 
 
 def _spin(node: SonarGuardNode, executor: SingleThreadedExecutor, stop: _StopRequest) -> None:
@@ -350,13 +347,14 @@ def _spin(node: SonarGuardNode, executor: SingleThreadedExecutor, stop: _StopReq
     interrupt breaks the conversion); the node then goes on and sees the stop next turn.
     """
     failures = 0
-    while not stop and rclpy.ok():
+    while not stop.requested and rclpy.ok():
         try:
             executor.spin_once(timeout_sec=SPIN_TIMEOUT_S)
         except RuntimeError as err:
             failures += 1
             if failures <= 3 or failures % 1000 == 0:
                 node.get_logger().warning(f'could not take a message ({failures}): {err}')
+
 
 if __name__ == '__main__':
     sys.exit(main())
