@@ -137,6 +137,15 @@ class Rig:
         self.clock_pub = node.create_publisher(Clock, '/clock', 10)
         self.last_published: dict[str, float] = {}  # monotonic time of each sensor's last Range
 
+    def unmatched(self) -> list[str]:
+        """Topics of the Range and Odometry publishers no subscription has matched yet."""
+        pubs = [*self.range_pubs.values(), self.odom_pub]
+        return [pub.topic_name for pub in pubs if pub.get_subscription_count() == 0]
+
+    def matched(self) -> bool:
+        """Tell whether a subscription (the node's) matched every Range and Odometry publisher."""
+        return not self.unmatched()
+
     def _on_limit(self, msg: Float64) -> None:
         self.limits.append((time.monotonic(), msg.data))
 
@@ -237,9 +246,12 @@ def start_node(test_node: Node, config: Config, log_path: Path,
     if before_wait is not None:
         before_wait(rig)
     try:
-        # the node publishes allowed_speed at publish_rate from the start: wait for the first
-        rig.run_until(lambda: rig.limits, timeout_s=timeout_s)
+        # the node publishes allowed_speed at publish_rate from the start, before discovery has
+        # matched its subscriptions: wait for the first limit and for every reading publisher
+        # to see the node, so a slow discovery does not eat into a test's own timing
+        rig.run_until(lambda: bool(rig.limits) and rig.matched(), timeout_s=timeout_s)
     except AssertionError:
         proc.interrupt()
-        raise AssertionError('node never published allowed_speed:\n' + proc.output()) from None
+        raise AssertionError('node never published allowed_speed or never subscribed to '
+                             f'{rig.unmatched()}:\n' + proc.output()) from None
     return proc, rig
