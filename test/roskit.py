@@ -236,10 +236,11 @@ def start_node(test_node: Node, config: Config, log_path: Path,
                before_wait: Callable[[Rig], None] | None = None,
                best_effort: tuple[str, ...] = (), timeout_s: float = 30.0
                ) -> tuple[NodeProcess, Rig]:
-    """Start the node with the shipped parameters and a Rig; wait for its first limit.
+    """Start the node with the shipped parameters and a Rig; wait for its first limit and
+    until its subscriptions matched every Range and Odometry publisher of the Rig.
 
     ``before_wait(rig)`` runs before the wait (to start a simulated clock, say). Raises
-    AssertionError with the node's output when no allowed_speed arrives in ``timeout_s``.
+    AssertionError with the node's output when either does not happen in ``timeout_s``.
     """
     proc = NodeProcess(DEFAULT_PARAMS, extra, log_path=log_path)
     rig = Rig(test_node, config, best_effort=best_effort)
