@@ -25,7 +25,6 @@ from roskit import DEFAULT_PARAMS, NodeProcess, Rig, isolate_ros_environment, rc
 from sonar_guard.cli import load_config_file
 from sonar_guard.core.monitor import Monitor, OdometrySample
 from sonar_guard.core.readings import RangeReading
-from sonar_guard.ros.diagnostics import LEVEL_OK, LEVEL_WARN, MONITOR_STATUS_NAME
 
 pytestmark = pytest.mark.ros
 
@@ -105,17 +104,12 @@ def test_obstacle_ahead_gives_the_core_limit(started):
     # the limit stays at 0 until the node has fresh readings from every sensor and odometry
     # (its monitor status stops reporting a failure), then rises slowly to its target: wait
     # for that, then until it settles
-    trusted_from: list[int] = []
-
-    def settled() -> bool:
-        if not trusted_from:
-            if diag_levels(rig).get(MONITOR_STATUS_NAME) in (LEVEL_OK, LEVEL_WARN):
-                trusted_from.append(len(rig.limits))
-            return False
-        return (len(rig.limits) > trusted_from[0] + 40
-                and abs(rig.limits[-1][1] - rig.limits[-20][1]) < 0.01)
-
-    rig.run_until(settled, timeout_s=30.0)
+    trusted = (DiagnosticStatus.OK[0], DiagnosticStatus.WARN[0])  # DiagnosticStatus.msg
+    rig.run_until(lambda: diag_levels(rig).get('sonar_guard: monitor') in trusted,
+                  timeout_s=30.0)
+    trusted_from = len(rig.limits)
+    rig.run_until(lambda: len(rig.limits) > trusted_from + 40
+                  and abs(rig.limits[-1][1] - rig.limits[-20][1]) < 0.01, timeout_s=30.0)
     observed = rig.limit
     # the node's reading age lies between 0 and one reading period (plus transport jitter)
     high = core_limit({FRONT: 1.0}, 0.05, age_s=0.0)
