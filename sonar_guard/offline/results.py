@@ -267,6 +267,10 @@ class BagResult:
     messages: int = 0
     error: str | None = None  # why the recording could not be read to its end
     notes: list[str] = field(default_factory=list)
+    # event kinds not checked because what they need is unknown (no parameter file), and one
+    # sentence saying so and which file would enable them ('' when every check ran)
+    skipped_checks: tuple[str, ...] = ()
+    skipped_notice: str = ''
 
     @property
     def duration_s(self) -> float:
