@@ -21,11 +21,12 @@ node without a namespace, and its parameters would then be silently ignored.
 
 Topics are relative (`allowed_speed`, `odom`, the sensors' `sonar/...` topics, ...), so they
 follow the namespace and can be remapped. The odometry topic can also be set with the
-`odom_topic` parameter. To remap from the command line without this file::
+`odom_topic` parameter. To feed a controller, remap `allowed_speed` to whatever topic it
+listens to. To remap an input from the command line without this file::
 
     ros2 run sonar_guard sonar_guard_node --ros-args \\
         --params-file /path/to/my_robot.yaml \\
-        -r odom:=/wheel/odometry -r allowed_speed:=/speed_limit
+        -r odom:=/wheel/odometry
 
 To remap when including this file from another launch file (SetRemap applies to every node
 started inside the group)::
