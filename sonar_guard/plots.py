@@ -22,6 +22,7 @@ from matplotlib.colors import to_rgba
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Polygon, Wedge
+from matplotlib.ticker import MaxNLocator
 import numpy as np
 import numpy.typing as npt
 
@@ -454,34 +455,88 @@ def range_figure(result: BagResult) -> Figure:
     return fig
 
 
+def _kinds_of(events: Sequence[Event]) -> list[str]:
+    """Return the event kinds present, contract kinds first (EVENT_KINDS order), then others."""
+    seen = {e.kind for e in events}
+    return [k for k in EVENT_KINDS if k in seen] + sorted(seen - set(EVENT_KINDS))
+
+
+def _draw_findings(ax: Axes, events: Sequence[Event], kinds: list[str], t0: float) -> None:
+    """Mark every finding on a time strip (s since ``t0``): one row per kind, top down.
+
+    A tick marks each start, so one-reading findings show however short; a bar spans each
+    stretch.
+    """
+    for row, kind in enumerate(kinds):
+        colour = EVENT_COLOURS.get(kind, _UNKNOWN_COLOUR)
+        mine = [(e.t_start - t0, e.t_end - t0) for e in events if e.kind == kind]
+        mine = [(a, b) for a, b in mine if math.isfinite(a) and math.isfinite(b)]
+        bars = [(a, b - a) for a, b in mine if b > a]
+        if bars:
+            ax.broken_barh(bars, (row - 0.3, 0.6), facecolors=colour, alpha=0.55,
+                           edgecolors='none', gid=f'finding-{kind}')
+        ax.plot([a for a, _ in mine], [row] * len(mine), '|', color=colour, markersize=9,
+                markeredgewidth=1.4, gid=f'finding-{kind}-start')
+    ax.set_yticks(range(len(kinds)), [_plain(k) for k in kinds], fontsize=7)
+    for label, kind in zip(ax.get_yticklabels(), kinds):
+        label.set_color(EVENT_COLOURS.get(kind, _UNKNOWN_COLOUR))
+    ax.set_ylim(len(kinds) - 0.5, -0.5)  # first kind on top
+    ax.tick_params(labelsize=7)
+    ax.grid(True, axis='x', color='#e9ecef', linewidth=0.5)
+    ax.set_title('findings by kind (all sensors and the robot)', fontsize=8, loc='left')
+
+
 def speed_figure(result: BagResult) -> Figure:
-    """Return measured speed and allowed limit (m/s) over time (s since bag start)."""
-    fig = Figure(figsize=(10.0, 3.2), layout='constrained')
-    ax = fig.add_subplot(1, 1, 1)
+    """Return measured and allowed speed (m/s) over time (s since bag start), findings below.
+
+    Measured speed is a solid line (highest per time bucket), the allowed speed a dashed step
+    (lowest per bucket), the configured max speed dotted; robot events (overspeed) are shaded.
+    A strip under the plot marks every finding, one row per kind. With no allowed-speed series
+    (a recording checked without a parameter file) only the measured speed is drawn and the
+    figure says the allowed speed was not computed.
+    """
     t0 = result.t_start
     ts, speed, _ = result.speed.arrays()
     tl, limit, _ = result.limit.arrays()
-    if (ts.size == 0 and tl.size == 0) or math.isnan(t0):
+    empty = (ts.size == 0 and tl.size == 0) or math.isnan(t0)
+    kinds = [] if empty else _kinds_of(result.events)
+    if kinds:
+        fig = Figure(figsize=(10.0, 3.4 + 0.2 * len(kinds)), layout='constrained')
+        ax, strip = fig.subplots(2, 1, sharex=True,
+                                 height_ratios=[3.0, 0.35 + 0.2 * len(kinds)])
+        _draw_findings(strip, result.events, kinds, t0)
+        strip.set_xlabel('time since bag start (s)', fontsize=8)
+    else:
+        fig = Figure(figsize=(10.0, 3.2), layout='constrained')
+        ax = fig.add_subplot(1, 1, 1)
+        ax.set_xlabel('time since bag start (s)', fontsize=8)
+    title = 'Measured speed against the allowed speed'
+    if empty:
         _no_data(ax)
     else:
-        if tl.size:
-            ax.step(tl - t0, limit, where='post', color=COLOURS['limit'], linewidth=1.3,
-                    label='allowed limit (lowest per bucket)', gid='limit')
         if ts.size:
-            ax.plot(ts - t0, speed, color=COLOURS['speed'], linewidth=0.9,
+            ax.plot(ts - t0, speed, color=COLOURS['speed'], linewidth=1.0, linestyle='-',
                     label='measured speed (highest per bucket)', gid='speed')
-        kinds = _shade_events(ax, [e for e in result.events if e.sensor is None], t0)
-        ax.axhline(result.config.limits.max_speed_mps, color=COLOURS['silent'],
-                   linestyle='--', linewidth=0.7, label='max speed')
+        if tl.size:
+            ax.step(tl - t0, limit, where='post', color=COLOURS['limit'], linewidth=1.4,
+                    linestyle='--', label='allowed speed (lowest per bucket)', gid='limit')
+            ax.axhline(result.config.limits.max_speed_mps, color=COLOURS['silent'],
+                       linestyle=':', linewidth=1.0, label='configured max speed')
+        else:
+            title = 'Measured speed (allowed speed not computed)'
+            ax.text(0.01, 0.95, 'allowed speed not computed for this recording',
+                    transform=ax.transAxes, ha='left', va='top', fontsize=8,
+                    color=COLOURS['untrusted'], gid='no-limit')
+            ax.plot([], [], linestyle='none', label='allowed speed: not computed')
+        robot = _shade_events(ax, [e for e in result.events if e.sensor is None], t0)
         handles, _ = ax.get_legend_handles_labels()
-        ax.legend(handles=handles + _event_handles(kinds), fontsize=7, loc='upper right',
-                  ncol=2, framealpha=0.9)
+        ax.legend(handles=handles + _event_handles(robot), fontsize=7, loc='lower left',
+                  bbox_to_anchor=(0.0, 1.0), ncol=4, frameon=False, borderaxespad=0.2)
         ax.set_ylim(bottom=0.0)
-    ax.set_xlabel('time since bag start (s)', fontsize=8)
-    ax.set_ylabel('m/s', fontsize=8)
+    ax.set_ylabel('speed (m/s)', fontsize=8)
     ax.tick_params(labelsize=7)
     ax.grid(True, color='#e9ecef', linewidth=0.5)
-    ax.set_title('Speed against the allowed limit; robot events shaded', fontsize=10)
+    fig.suptitle(title, fontsize=10)
     return fig
 
 
@@ -507,9 +562,9 @@ def _draw_histogram(ax: Axes, hist: Histogram, colour: str) -> None:
     data = hist.to_dict()
     edges = np.asarray(data['edges_s'], dtype=float)
     counts = np.asarray(data['counts'], dtype=float)
+    ax.set_yticks([])  # the shape matters here, not the counts
     if not counts.size and not data['beyond']:
         _no_data(ax)
-        ax.set_yticks([])
         return
     if counts.size:
         left, merged, width = _display_bins(edges, counts, float(data['bin_s']))
@@ -517,37 +572,56 @@ def _draw_histogram(ax: Axes, hist: Histogram, colour: str) -> None:
         ax.bar(left_ms, merged, width=width_ms, align='edge', color=colour, linewidth=0)
         # a lone value next to hundreds is a bar one pixel high: a tick shows it is there
         ax.plot(left_ms + width_ms / 2, np.zeros_like(left_ms), '|', color=colour,
-                markersize=7, clip_on=False)
+                markersize=6, clip_on=False)
         lo, hi = float(left_ms.min()), float(left_ms.max()) + width_ms
         span = max(hi - lo, 10 * width_ms)
         ax.set_xlim(lo - 0.05 * span, hi + 0.05 * span)
     p99 = hist.quantile(0.99)
     if math.isfinite(p99):
         ax.axvline(p99 * 1e3, color=COLOURS['body'], linestyle='--', linewidth=0.8)
+        ax.set_title(f'p99 {p99 * 1e3:.0f}', loc='right', fontsize=6.5, pad=2,
+                     color=COLOURS['body'])
     if data['beyond']:
-        ax.text(0.98, 0.9, f'+{data["beyond"]} beyond {hist.max_s * 1e3:g} ms',
-                transform=ax.transAxes, ha='right', va='top', fontsize=7,
+        ax.text(0.98, 0.95, f'+{data["beyond"]} > {hist.max_s * 1e3:g}',
+                transform=ax.transAxes, ha='right', va='top', fontsize=6.5,
                 color=COLOURS['untrusted'])
 
 
-def timing_figure(result: BagResult) -> Figure:
-    """Return per sensor the histograms of detection latency and of reading period (ms)."""
-    sensors = list(result.sensors)
-    rows = max(1, len(sensors))
-    fig = Figure(figsize=(10.0, 0.9 + 1.25 * rows), layout='constrained')
-    axes = fig.subplots(rows, 2, squeeze=False)
-    if not sensors:
-        for ax in axes[0]:
-            _no_data(ax, 'no data: no sensors')
-    for (lat_ax, per_ax), s in zip(axes, sensors):
-        _draw_histogram(lat_ax, s.latencies, COLOURS['beam'])
-        _draw_histogram(per_ax, s.periods, COLOURS['trusted'])
-        lat_ax.set_ylabel(_plain(s.name), fontsize=8, rotation=0, ha='right', va='center')
-        for ax in (lat_ax, per_ax):
-            ax.tick_params(labelsize=7)
-    axes[0, 0].set_title('worst-case detection latency (ms); dashed: p99', fontsize=9)
-    axes[0, 1].set_title('time between readings (ms); dashed: p99', fontsize=9)
-    axes[-1, 0].set_xlabel('ms', fontsize=8)
-    axes[-1, 1].set_xlabel('ms', fontsize=8)
-    return fig
+_TIMING_COLUMNS = 4  # sensors side by side in the histogram grid
+_CELL_IN = (1.55, 0.8)  # width and height of one histogram, inches
 
+
+def timing_figure(result: BagResult) -> Figure:
+    """Return small histograms per sensor (ms): time between readings, detection latency.
+
+    A compact grid, at most four sensors wide: each sensor has its period
+    histogram above its latency histogram; dashed and labelled: the 99th percentile. The
+    figure is meant to sit smaller than the full-width time plots.
+    """
+    sensors = list(result.sensors)
+    cols = max(1, min(_TIMING_COLUMNS, len(sensors)))
+    rows = max(1, math.ceil(len(sensors) / cols))
+    fig = Figure(figsize=(0.7 + _CELL_IN[0] * cols, 0.45 + 2 * _CELL_IN[1] * rows + 0.25 * rows),
+                 layout='constrained')
+    axes = fig.subplots(2 * rows, cols, squeeze=False)
+    if not sensors:
+        for ax in axes[:, 0]:
+            _no_data(ax, 'no data: no sensors')
+    for i, s in enumerate(sensors):
+        r, c = divmod(i, cols)
+        per_ax, lat_ax = axes[2 * r, c], axes[2 * r + 1, c]
+        _draw_histogram(per_ax, s.periods, COLOURS['trusted'])
+        _draw_histogram(lat_ax, s.latencies, COLOURS['beam'])
+        per_ax.set_title(_plain(s.name), loc='left', fontsize=8, pad=2, fontweight='bold')
+        for ax in (per_ax, lat_ax):
+            ax.tick_params(labelsize=6.5, pad=1)
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=4))
+    for r in range(rows):
+        axes[2 * r, 0].set_ylabel('period', fontsize=7)
+        axes[2 * r + 1, 0].set_ylabel('latency', fontsize=7)
+    for i in range(len(sensors), rows * cols):  # empty cells of the last grid row
+        r, c = divmod(i, cols)
+        axes[2 * r, c].set_visible(False)
+        axes[2 * r + 1, c].set_visible(False)
+    fig.suptitle('Timing per sensor (ms); dashed: p99', fontsize=9)
+    return fig

@@ -258,3 +258,91 @@ def test_names_with_dollar_signs_are_drawn_literally():
     shown, is_math = fig.axes[0].yaxis.label._preprocess_math(fig.axes[0].get_ylabel())
     assert (shown, is_math) == ('$\\frac{$', False)  # what matplotlib will draw, as typed
     assert figure_png_base64(fig)
+
+
+# ------------------------------------------------------------------ speed and timing figures
+
+
+def lines_by_gid(ax) -> dict:
+    return {li.get_gid(): li for li in ax.lines if li.get_gid()}
+
+
+def test_speed_plot_has_a_legend_and_tells_measured_from_allowed_by_line_style():
+    """Legend names both series; measured is solid, allowed is dashed (not colour alone)."""
+    ax = speed_figure(recording([1.0, 1.0, 1.0], ['ok', 'ok', 'ok'])).axes[0]
+    legend = ax.get_legend()
+    assert legend is not None
+    texts = [t.get_text() for t in legend.get_texts()]
+    assert any(t.startswith('measured speed') for t in texts)
+    assert any(t.startswith('allowed speed') for t in texts)
+    lines = lines_by_gid(ax)
+    assert lines['speed'].get_linestyle() == '-'
+    assert lines['limit'].get_linestyle() == '--'
+    np.testing.assert_allclose(lines['limit'].get_ydata(), 0.5)  # recording(): limit 0.5 m/s
+    np.testing.assert_allclose(lines['speed'].get_ydata(), 0.4)
+
+
+def test_speed_plot_marks_every_finding_on_the_time_axis_one_row_per_kind():
+    """A strip below shares the time axis: each kind a labelled row, a tick at each start."""
+    events = [Event('no_echo', 'ahead', T0 + 1, T0 + 2, 'x'),
+              Event('jump', 'ahead', T0 + 2.5, T0 + 2.5, 'y'),
+              Event('overspeed', None, T0 + 3, T0 + 3.5, 'z')]
+    fig = speed_figure(recording([1.0] * 5, ['ok'] * 5, events))
+    main, strip = fig.axes
+    assert strip.get_shared_x_axes().joined(main, strip)
+    assert [t.get_text() for t in strip.get_yticklabels()] == ['no_echo', 'jump', 'overspeed']
+    starts = lines_by_gid(strip)
+    for row, e in enumerate(events):
+        tick = starts[f'finding-{e.kind}-start']
+        np.testing.assert_allclose(tick.get_xdata(), [e.t_start - T0])
+        np.testing.assert_allclose(tick.get_ydata(), [row])
+    spans = {c.get_gid() for c in strip.collections}
+    assert spans == {'finding-no_echo', 'finding-overspeed'}  # the jump has no duration
+
+
+def test_speed_plot_without_an_allowed_speed_draws_measured_speed_and_says_so():
+    """An empty limit series (no parameter file): measured only, a note, no max-speed line."""
+    result = recording([1.0, 1.0, 1.0], ['ok', 'ok', 'ok'])
+    result.limit = BagResult('/b', make_config(), 'test').limit  # a fresh, empty series
+    fig = speed_figure(result)
+    ax = fig.axes[0]
+    assert set(lines_by_gid(ax)) == {'speed'}
+    assert 'no-limit' in gids(ax)
+    assert not [li for li in ax.lines if li.get_linestyle() == ':']  # no configured max speed
+    texts = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert 'allowed speed: not computed' in texts
+    assert 'not computed' in fig.get_suptitle()
+    assert base64.b64decode(figure_png_base64(fig))[:8] == PNG_SIGNATURE
+
+
+def area(fig: Figure) -> float:
+    w, h = fig.get_size_inches()
+    return float(w * h)
+
+
+@pytest.mark.parametrize('count', [1, 3, 8])
+def test_histograms_are_smaller_than_the_time_plots(count):
+    """The timing grid is narrower and smaller in area than the range and speed figures."""
+    result = recording([1.0, 2.0], ['ok', 'ok'])
+    template = result.sensors[0]
+    result.sensors = [SensorSummary(f's{i}', f'sonar/s{i}', readings=2, periods=template.periods,
+                                    latencies=template.latencies) for i in range(count)]
+    timing = timing_figure(result)
+    for plot in (range_figure(result), speed_figure(result)):
+        assert timing.get_size_inches()[0] < 0.8 * plot.get_size_inches()[0]
+        assert area(timing) < area(plot)
+
+
+def test_histograms_form_a_grid_at_most_four_sensors_wide_period_above_latency():
+    """Six sensors: two grid rows of four columns, each sensor a period and a latency plot."""
+    result = recording([1.0, 2.0], ['ok', 'ok'])
+    s = result.sensors[0]
+    result.sensors = [SensorSummary(f's{i}', 'x', periods=s.periods, latencies=s.latencies)
+                      for i in range(6)]
+    fig = timing_figure(result)
+    shown = [ax for ax in fig.axes if ax.get_visible()]
+    assert len(shown) == 12
+    names = [ax.get_title(loc='left') for ax in shown if ax.get_title(loc='left')]
+    assert names == [f's{i}' for i in range(6)]
+    columns = {round(ax.get_position().x0, 3) for ax in shown}
+    assert len(columns) == 4
