@@ -23,7 +23,10 @@ class ConfigError(SonarGuardError, ValueError):
         self.source = source
         where = f'{source}: ' if source else ''
         count = len(self.problems)
-        head = f'{where}{count} problem{"s" if count != 1 else ""} in the parameters'
+        if count == 1:  # one problem, one line
+            super().__init__(f'{where}{self.problems[0]}')
+            return
+        head = f'{where}{count} problems in the parameters'
         super().__init__(head + ''.join(f'\n  - {p}' for p in self.problems))
 
 

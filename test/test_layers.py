@@ -59,3 +59,4 @@ def test_config_error_is_a_value_error_under_the_package_root():
     assert issubclass(RecordingError, SonarGuardError)
     err = ConfigError(['a', 'b'], source='x.yaml')
     assert str(err).splitlines() == ['x.yaml: 2 problems in the parameters', '  - a', '  - b']
+    assert str(ConfigError(['a'], source='x.yaml')) == 'x.yaml: a'  # one problem, one line

@@ -22,6 +22,10 @@ BASE_PARAMS: dict[str, Any] = {
 
 def make_config(overrides: Mapping[str, Any] | None = None) -> Config:
     """Build the test robot's configuration with some parameters replaced."""
-    params = dict(BASE_PARAMS)
-    params.update(overrides or {})
+    overrides = dict(overrides or {})
+    names = overrides.get('sensor_names', BASE_PARAMS['sensor_names'])
+    # the base robot's keys of sensors the test leaves out would be unknown keys
+    params = {k: v for k, v in BASE_PARAMS.items()
+              if not k.startswith('sensors.') or k.split('.')[1] in names}
+    params.update(overrides)
     return build_config(params)

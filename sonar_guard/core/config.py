@@ -27,6 +27,8 @@ __all__ = [
     'LimitsConfig',
     'NODE_NAME',
     'ParamSpec',
+    'ROS_OWNED_KEYS',
+    'ROS_OWNED_PREFIXES',
     'RobotConfig',
     'SENSOR_FIELDS',
     'SONAR_KEYS',
@@ -36,6 +38,7 @@ __all__ = [
     'global_specs',
     'parse_params_yaml',
     'sensor_specs',
+    'unknown_key_problems',
 ]
 
 NODE_NAME = 'sonar_guard'
@@ -433,8 +436,10 @@ def _in_range(spec: ParamSpec, value: float) -> bool:
 def build_config(values: Mapping[str, Any], *, source: str = '') -> Config:
     """Validate a flat parameter mapping into a :class:`Config`.
 
-    Raises :class:`ConfigError` listing every problem (key, rule and value). Unknown keys
-    do not fail; they are returned in ``Config.warnings`` with the closest known key.
+    Raises :class:`ConfigError` listing every problem (key, rule and value). An unknown key
+    is a problem too, named with the closest known key: a misspelt key would otherwise leave
+    its parameter at the default without a word. Keys that ROS tools put in the same file
+    (``use_sim_time``, ``qos_overrides.*``, ...) are accepted.
     """
     r = _Reader(values)
     g = {s.key: s for s in _GLOBAL_SPECS}
@@ -483,7 +488,8 @@ def build_config(values: Mapping[str, Any], *, source: str = '') -> Config:
     gate = r.get(g['gate_commands'])
 
     _cross_checks(r.problems, sensors, limits, odom_topic)
-    warnings = _unknown_key_warnings(values, r.used, names)
+    r.problems.extend(unknown_key_problems(values, r.used, names))
+    warnings: list[str] = []
     if r.problems:
         raise ConfigError(r.problems, source=source)
     assert footprint is not None
@@ -536,18 +542,31 @@ def _cross_checks(problems: list[str], sensors: Sequence[SensorConfig], limits: 
             f'({limits.max_speed_mps:g} m/s): {limits.fallback_speed_mps!r}')
 
 
-def _unknown_key_warnings(values: Mapping[str, Any], used: set[str],
-                          names: Sequence[str]) -> list[str]:
+ROS_OWNED_KEYS: frozenset[str] = frozenset({'use_sim_time', 'start_type_description_service'})
+"""Parameters every ROS 2 node has; a parameter file for this node may set them."""
+
+ROS_OWNED_PREFIXES: tuple[str, ...] = ('qos_overrides.',)
+"""Key prefixes that ROS tools read from the same parameter file (QoS overrides)."""
+
+
+def unknown_key_problems(values: Mapping[str, Any], used: set[str],
+                         names: Sequence[str]) -> list[str]:
+    """Return one problem per key that is not a parameter, with the closest known key."""
     known = sorted(used)
-    warnings = []
+    problems = []
     for key in values:
-        if key in used or key in ('use_sim_time',) or key.startswith('qos_overrides.'):
+        if key in used or key in ROS_OWNED_KEYS or key.startswith(ROS_OWNED_PREFIXES):
             continue
         parts = key.split('.')
         if len(parts) >= 2 and parts[0] == 'sensors' and parts[1] not in names:
-            warnings.append(f"{key!r} ignored: sensor {parts[1]!r} is not in 'sensor_names'")
+            close = difflib.get_close_matches(parts[1], list(names), n=1, cutoff=0.6)
+            hint = (f'did you mean {close[0]}?' if close
+                    else 'list it there or delete its keys')
+            problems.append(f'unknown key {key}: sensor {parts[1]} is not in sensor_names '
+                            f'({hint})')
             continue
         close = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
-        hint = f'; did you mean {close[0]!r}?' if close else ''
-        warnings.append(f'unknown parameter {key!r} ignored{hint}')
-    return warnings
+        hint = (f'did you mean {close[0]}?' if close
+                else 'not a parameter of sonar_guard; see the parameter reference')
+        problems.append(f'unknown key {key} ({hint})')
+    return problems

@@ -81,8 +81,10 @@ class ParameterBridge:
                 for spec in sensor_specs(name):
                     self._declare(spec)
         overrides: Mapping[str, Any] = getattr(node, '_parameter_overrides', {}) or {}
+        # keys of the file that are not ours: the core names each as a problem, unless the
+        # node has it already (use_sim_time and the other parameters every ROS node declares)
         self.unknown = {k: getattr(p, 'value', p) for k, p in overrides.items()
-                        if k not in self._specs and k != 'use_sim_time'}
+                        if k not in self._specs and not node.has_parameter(k)}
 
     def _declare(self, spec: ParamSpec) -> None:
         node = self._node
@@ -104,7 +106,7 @@ class ParameterBridge:
         self.values[spec.key] = value
 
     def build(self) -> Config:
-        """Validate the declared values (and unknown overrides, for warnings) into a Config."""
+        """Validate the declared values and unknown overrides (each a problem) into a Config."""
         return build_config({**self.unknown, **self.values}, source='parameters')
 
     def vet(self, params: list[Parameter]) -> tuple[SetParametersResult, Config | None]:

@@ -146,12 +146,34 @@ class TestBuildConfig:
             make_config(overrides)
         assert any(needle in p for p in info.value.problems), info.value.problems
 
-    def test_unknown_keys_warn_with_the_closest_known_key(self):
-        """A typo is not fatal but is named, with a suggestion."""
-        config = make_config({'limits.max_sped': 0.5, 'sensors.ghost.x': 1.0})
-        assert any("'limits.max_sped'" in w and "'limits.max_speed'" in w
-                   for w in config.warnings)
-        assert any("sensor 'ghost' is not in 'sensor_names'" in w for w in config.warnings)
+    @pytest.mark.parametrize('key, value, problem', [
+        ('robot.decell', 0.5, 'unknown key robot.decell (did you mean robot.decel?)'),
+        ('limits.max_sped', 0.5, 'unknown key limits.max_sped (did you mean limits.max_speed?)'),
+        ('sensors.ahead.yawn', 0.1,
+         'unknown key sensors.ahead.yawn (did you mean sensors.ahead.yaw?)'),
+        ('sensors.ahaed.x', 1.0,
+         'unknown key sensors.ahaed.x: sensor ahaed is not in sensor_names '
+         '(did you mean ahead?)'),
+        ('sensors.ghost.x', 1.0,
+         'unknown key sensors.ghost.x: sensor ghost is not in sensor_names '
+         '(list it there or delete its keys)'),
+        ('colour', 'red', 'unknown key colour (not a parameter of sonar_guard'),
+    ])
+    def test_unknown_keys_fail_with_the_closest_known_key(self, key, value, problem):
+        """A misspelt key is an error naming the closest key, not a default used silently."""
+        with pytest.raises(ConfigError) as info:
+            make_config({key: value})
+        assert len(info.value.problems) == 1
+        assert info.value.problems[0].startswith(problem), info.value.problems
+
+    @pytest.mark.parametrize('key, value', [
+        ('use_sim_time', True),
+        ('start_type_description_service', False),
+        ('qos_overrides./sonar/front.subscription.reliability', 'best_effort'),
+    ])
+    def test_keys_of_ros_tools_are_accepted(self, key, value):
+        """Keys that rclpy and the QoS override mechanism read from the same file are fine."""
+        assert make_config({key: value}).warnings == ()
 
     def test_config_is_frozen(self):
         """Configuration cannot change after validation."""

@@ -290,3 +290,19 @@ def test_bad_startup_parameters_exit_2_listing_every_problem(tmp_path):
     assert 'Traceback' not in out
     for key in ("'robot.decel'", "'limits.margin'", "'sonar.max_range'"):
         assert key in out
+
+
+def test_a_misspelt_key_stops_the_node_with_the_hint_check_gives(tmp_path):
+    """A typo'd key in the parameter file: exit 2 and the same line as `sonar-guard check`;
+    the keys ROS tools read from the same file (QoS overrides) are accepted beside it."""
+    params = tmp_path / 'typo.yaml'
+    params.write_text(DEFAULT_PARAMS.read_text(encoding='utf-8').replace(
+        '  ros__parameters:\n',
+        '  ros__parameters:\n    qos_overrides:\n      /odom:\n        subscription:\n'
+        '          depth: 5\n', 1).replace('decel:', 'decell:', 1), encoding='utf-8')
+    proc = NodeProcess(params, log_path=tmp_path / 'typo.log')
+    code = proc.proc.wait(60)
+    out = proc.output()
+    assert code == 2, out
+    assert 'unknown key robot.decell (did you mean robot.decel?)' in out
+    assert 'qos_overrides' not in out and 'Traceback' not in out
