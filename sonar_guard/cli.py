@@ -6,10 +6,13 @@ Each subcommand is a function returning an exit code: 0 fine, 1 findings, 2 unus
 from __future__ import annotations
 
 import argparse
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 import json
+import math
 from pathlib import Path
+import re
 import sys
+from typing import NoReturn
 
 from sonar_guard import SAFETY_CAUTION, __version__
 from sonar_guard.budget import budget_of
@@ -24,7 +27,55 @@ EXIT_OK, EXIT_FINDINGS, EXIT_UNUSABLE = 0, 1, 2
 
 
 class UsageError(SonarGuardError):
-    """A command-line argument is wrong; argparse reports it with the usage line."""
+    """A command-line argument is wrong; reported in one line with a pointer to --help."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line on stderr (exit 2), not the usage block."""
+
+    def error(self, message: str) -> NoReturn:
+        """Print one line naming the problem and where help is, then exit 2."""
+        self.exit(EXIT_UNUSABLE, f'{self.prog}: error: {message} (see {self.prog} --help)\n')
+
+
+def _number(*, low: float, high: float, unit: str, low_open: bool = True,
+            integer: bool = False) -> Callable[[str], float]:
+    """Return an argparse type that takes only finite numbers in a range (unit for messages)."""
+    def show(x: float) -> str:
+        return str(int(x)) if integer else f'{x:g}'
+
+    rule = f'{">" if low_open else ">="} {show(low)} and <= {show(high)}'
+    rule += f' {unit}' if unit else ''
+    kind = 'a whole number' if integer else 'a finite number'
+
+    def parse(text: str) -> float:
+        try:
+            value = int(text) if integer else float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f'must be {kind} {rule}: {text!r}') from None
+        if not math.isfinite(value) or value < low or (low_open and value == low) \
+                or value > high:
+            raise argparse.ArgumentTypeError(f'must be {kind} {rule}: {text!r}')
+        return value
+    return parse
+
+
+_TOPIC_RE = re.compile(r'^/?[A-Za-z_][A-Za-z0-9_]*(/[A-Za-z_][A-Za-z0-9_]*)*$')
+
+
+def _topic(text: str) -> str:
+    """Argparse type of a ROS topic name."""
+    if not _TOPIC_RE.match(text):
+        raise argparse.ArgumentTypeError(
+            f'must be a ROS topic name (letters, digits, _ and /): {text!r}')
+    return text
+
+
+def _output(text: str) -> str:
+    """Argparse type of an output file path: not empty (the path itself is checked later)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError('needs a file name, got an empty one')
+    return text
 
 
 def load_config_file(path: Path | str | None) -> Config:
@@ -45,9 +96,10 @@ def _fmt(value: float | None, scale: float = 1.0, digits: int = 1) -> str:
 
 def cmd_budget(args: argparse.Namespace) -> int:
     """Print the timing and speed budget of a parameter file."""
+    if args.plot:
+        from sonar_guard.offline.atomic import check_output_path
+        check_output_path(args.plot)
     config = load_config_file(args.params)
-    for warning in config.warnings:
-        print(f'warning: {warning}', file=sys.stderr)
     budget = budget_of(config)
     if args.plot:
         from sonar_guard.plots import save_layout_png
@@ -100,17 +152,13 @@ def cmd_check(args: argparse.Namespace) -> int:
         fail_on = parse_kinds(args.fail_on)
     except ValueError as err:
         raise UsageError(f'--fail-on: {err}') from None
-    if args.jobs < 1:
-        raise UsageError(f'--jobs must be at least 1: {args.jobs}')
     for output in (args.json if args.json != '-' else None, args.html):
         if output:  # refuse a bad output path now, not after the check, and write none
             check_output_path(output)
     config, source = None, ''
     if args.params:
         config = load_config_file(args.params)
-        source = f'parameters from {args.params}'
-        for warning in config.warnings:
-            print(f'warning: {warning}', file=sys.stderr)
+        source = str(args.params)
     run = _with_progress(
         lambda progress: check_many(args.bags, config, config_source=source, jobs=args.jobs,
                                     fail_on=fail_on, progress=progress),
@@ -144,6 +192,10 @@ def cmd_tune(args: argparse.Namespace) -> int:
         check_output_path(args.output)
     config = load_config_file(args.params)
     evidence = gather(args.bags, config, cmd_topic=args.cmd_topic)
+    if evidence.unreadable:  # proposals from part of the input would mislead: write nothing
+        for reason in evidence.unreadable:
+            print(f'sonar-guard: error: {reason}', file=sys.stderr)
+        return EXIT_UNUSABLE
     proposals = propose(config, evidence)
     text = render_params(config, proposals, sources=[str(b) for b in args.bags])
     build_config(parse_params_yaml(text, source='tune output'), source='tune output')
@@ -166,10 +218,20 @@ def cmd_demo(args: argparse.Namespace) -> int:
     """Simulate the invented corridor run, record it, check it and write the report."""
     import time
 
-    from sonar_guard.offline.atomic import OutputError, check_output_path, write_text_atomic
+    from sonar_guard.offline.atomic import (
+        OutputError,
+        check_output_path,
+        os_error_advice,
+        write_text_atomic,
+    )
     from sonar_guard.offline.check import check_many, report_json
     from sonar_guard.offline.html import render_html
-    from sonar_guard.sim.demo import DEMO_DURATION_S, match_planned, write_demo_bag
+    from sonar_guard.sim.demo import (
+        DEMO_DURATION_S,
+        explain_findings,
+        match_planned,
+        write_demo_bag,
+    )
 
     out = Path(args.out)
     bag = out / 'corridor_run'
@@ -187,7 +249,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as err:
-        raise OutputError(f'{out}: cannot create the folder: {err.strerror or err}') from None
+        raise OutputError(f'{out}: cannot create the folder: {os_error_advice(err)}') from None
     for report_path in (out / 'report.json', out / 'report.html'):
         check_output_path(report_path)
     config = load_config_file(None)
@@ -196,12 +258,16 @@ def cmd_demo(args: argparse.Namespace) -> int:
         shutil.rmtree(bag)  # the demo's own old recording (links inside are removed, not followed)
     started = time.monotonic()
     duration = min(args.duration or DEMO_DURATION_S, DEMO_DURATION_S)
-    print(f'simulating {duration:.0f} s of the linen cart in the service corridor ...',
+    print(f'simulating {duration:g} s of the linen cart in the service corridor ...',
           flush=True)
-    write_demo_bag(bag, config, duration_s=duration, seed=args.seed)
+    try:
+        write_demo_bag(bag, config, duration_s=duration, seed=args.seed)
+    except OSError as err:
+        raise OutputError(f'{bag}: cannot write the recording: {os_error_advice(err)}'
+                          ) from None
     print(f'checking the recording {bag} ...', flush=True)
     run = check_many([str(bag)], config, config_source='the demo cart (config/sonar_guard.yaml)')
-    lines = []
+    lines, kinds = [], []
     for result in run.results:  # say in the report which finding shows which happening
         for planned, hits in match_planned(result.events, result.t_start):
             if planned.start > duration:
@@ -211,6 +277,9 @@ def cmd_demo(args: argparse.Namespace) -> int:
                     + (f'found: {found}' if hits else 'NOT FOUND'))
             result.notes.append(line)
             lines.append(line)
+        for line in explain_findings(result.events, result.t_start):  # every kind, and why
+            result.notes.append(f'finding {line}')
+            kinds.append(line)
     report = report_json(run)
     json_path = write_text_atomic(out / 'report.json',
                                   json.dumps(report, indent=2, allow_nan=False) + '\n')
@@ -221,14 +290,11 @@ def cmd_demo(args: argparse.Namespace) -> int:
         print('\nplanned happenings and what the check found:')
         for line in lines:
             print('  ' + line)
-    for result in run.results:
-        kinds: dict[str, int] = {}
-        for e in result.events:
-            kinds[e.kind] = kinds.get(e.kind, 0) + 1
-        print('all findings: ' + (', '.join(f'{k} {n}' for k, n in sorted(kinds.items()))
-                                  or 'none'))
+    print('\nfindings by kind, and why they happened:')
+    for line in kinds or ['none']:
+        print('  ' + line)
     print(f'\nreport: {html_path.resolve()}\njson:   {json_path.resolve()}\n'
-          f'done in {time.monotonic() - started:.1f} s. {SAFETY_CAUTION}')
+          f'done in {time.monotonic() - started:.1f} s\n\n{SAFETY_CAUTION}')
     return EXIT_OK if run.exit_code != EXIT_UNUSABLE else EXIT_UNUSABLE
 
 
@@ -253,7 +319,7 @@ def _with_progress(work, *, enabled: bool, total: int):  # type: ignore[no-untyp
 
 def build_parser() -> argparse.ArgumentParser:
     """Return the argument parser of ``sonar-guard``."""
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog='sonar-guard',
         description='Check ultrasonic range readings and work out how fast a robot may go '
                     'so that it can still stop within what trustworthy readings show.',
@@ -273,11 +339,12 @@ def build_parser() -> argparse.ArgumentParser:
                         help='ROS 2 parameter file (default: the installed '
                              'config/sonar_guard.yaml)')
     budget.add_argument('--json', action='store_true', help='print JSON instead of tables')
-    budget.add_argument('--plot', metavar='FILE.png',
+    budget.add_argument('--plot', metavar='FILE.png', type=_output,
                         help='also draw the layout: footprint, mounts and cones with uncovered '
                              'headings shaded, and the largest safe speed by heading')
-    budget.add_argument('--free-distance', type=float, default=1.0, metavar='M',
-                        help='free distance for the speed-by-heading plot (default 1.0 m)')
+    budget.add_argument('--free-distance', default=1.0, metavar='M',
+                        type=_number(low=0.0, high=100.0, unit='m'),
+                        help='free distance for the speed-by-heading plot, m (default 1.0)')
     budget.set_defaults(func=cmd_budget)
 
     check = sub.add_parser(
@@ -291,12 +358,15 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument('--params', metavar='FILE',
                        help='ROS 2 parameter file; without it, Range topics are found by type '
                             'and defaults are used (the report says so)')
-    check.add_argument('--json', metavar='PATH|-', help='write the JSON report ("-": stdout)')
-    check.add_argument('--html', metavar='PATH', help='write a self-contained HTML report')
+    check.add_argument('--json', metavar='PATH|-', type=_output,
+                       help='write the JSON report ("-": stdout)')
+    check.add_argument('--html', metavar='PATH', type=_output,
+                       help='write a self-contained HTML report')
     check.add_argument('--fail-on', metavar='KINDS',
                        help='comma-separated event kinds that count as findings for the exit '
                             f'code (default all: {", ".join(EVENT_KINDS)}; or none)')
-    check.add_argument('--jobs', type=int, default=1, metavar='N',
+    check.add_argument('--jobs', default=1, metavar='N',
+                       type=_number(low=1, high=1024, unit='', low_open=False, integer=True),
                        help='check N recordings in parallel processes (default 1)')
     check.add_argument('--quiet', action='store_true', help='no terminal summary')
     check.set_defaults(func=cmd_check)
@@ -311,9 +381,9 @@ def build_parser() -> argparse.ArgumentParser:
     tune.add_argument('bags', nargs='+', metavar='BAG', help='recordings to learn from')
     tune.add_argument('--params', metavar='FILE',
                       help='current parameter file (default: the installed one)')
-    tune.add_argument('-o', '--output', metavar='FILE',
+    tune.add_argument('-o', '--output', metavar='FILE', type=_output,
                       help='write the proposed parameter file here (default: stdout)')
-    tune.add_argument('--cmd-topic', default='cmd_vel', metavar='TOPIC',
+    tune.add_argument('--cmd-topic', default='cmd_vel', metavar='TOPIC', type=_topic,
                       help='velocity commands for the reaction time (default cmd_vel)')
     tune.set_defaults(func=cmd_tune)
 
@@ -326,9 +396,14 @@ def build_parser() -> argparse.ArgumentParser:
         epilog='Safety: ' + SAFETY_CAUTION)
     demo.add_argument('--out', default='demo_out', metavar='DIR',
                       help='output folder (default ./demo_out)')
-    demo.add_argument('--duration', type=float, default=None, metavar='S',
-                      help='simulate only the first S seconds (default: the whole run)')
-    demo.add_argument('--seed', type=int, default=7, help='noise seed (default 7)')
+    demo.add_argument('--duration', default=None, metavar='S',
+                      type=_number(low=0.0, high=3600.0, unit='s'),
+                      help='simulate only the first S seconds (default: the whole run; '
+                           'a longer value is cut to it)')
+    demo.add_argument('--seed', default=7, metavar='N',
+                      type=_number(low=0, high=2**32 - 1, unit='', low_open=False,
+                                   integer=True),
+                      help='noise seed, a whole number >= 0 (default 7)')
     demo.set_defaults(func=cmd_demo)
     return parser
 
@@ -336,18 +411,27 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run ``sonar-guard``; return the exit code."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as done:  # --help, --version (0) or a bad argument (2, one line)
+        return int(done.code or 0)
     if not getattr(args, 'func', None):
-        parser.print_help()
+        print('sonar-guard: error: name a command: budget, check, tune or demo '
+              '(see sonar-guard --help)', file=sys.stderr)
         return EXIT_UNUSABLE
     try:
         return int(args.func(args))
     except UsageError as err:
-        parser.error(str(err))  # exits 2 with the usage line
+        print(f'sonar-guard {args.command}: error: {err} '
+              f'(see sonar-guard {args.command} --help)', file=sys.stderr)
+        return EXIT_UNUSABLE
     except SonarGuardError as err:
         if args.debug:
             raise
         print(f'sonar-guard: error: {err}', file=sys.stderr)
         return EXIT_UNUSABLE
+    except KeyboardInterrupt:
+        print('sonar-guard: interrupted; nothing more was written', file=sys.stderr)
+        return 130
     except BrokenPipeError:
         return EXIT_OK

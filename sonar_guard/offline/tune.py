@@ -58,6 +58,7 @@ class Evidence:
     decels: list[float] = field(default_factory=list)  # m/s^2 of each braking stretch
     reactions: list[float] = field(default_factory=list)  # s from command step to response
     notes: list[str] = field(default_factory=list)
+    unreadable: list[str] = field(default_factory=list)  # one line per recording not usable
 
 
 @dataclass(frozen=True, slots=True)
@@ -80,10 +81,15 @@ def gather(paths: Sequence[str], config: Config, *, cmd_topic: str = 'cmd_vel') 
     """Read every recording once and collect the evidence for proposals."""
     ev = Evidence(sensors={s.name: _SensorEvidence() for s in config.sensors})
     for path in paths:
+        before = sum(se.count for se in ev.sensors.values())
         try:
             _gather_one(str(path), config, ev, cmd_topic)
         except RecordingError as err:
-            ev.notes.append(f'{path}: {err} (used what was readable)')
+            ev.unreadable.append(str(err))
+        else:
+            if sum(se.count for se in ev.sensors.values()) == before:
+                ev.unreadable.append(f'{path}: no readings of the configured sensors; check '
+                                     'the sensor topics in --params')
         ev.bags.append(str(path))
     return ev
 
