@@ -25,6 +25,7 @@ Units: seconds, metres, m/s, m/s^2, radians.
 """
 from __future__ import annotations
 
+from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 import math
@@ -64,6 +65,7 @@ STILL_SPEED_MPS = 0.02  # below this the direction of travel is kept, not re-rea
 CLOCK_JUMP_S = 0.5  # time going back more than this resets every history
 HOLONOMIC_HEADINGS = 72  # 5 degree steps
 TABLE_STEP_M = 0.01  # range step of the precomputed travel tables
+TREND_S = 0.5  # readings only: a range falling over this long means closing in
 _STRETCH_KINDS = {Verdict.BLIND: 'blind', Verdict.INVALID: 'invalid', Verdict.STALE: 'stale',
                   Verdict.STUCK: 'stuck'}  # 'late' follows ReadingCheck.late, any verdict
 
@@ -145,8 +147,8 @@ class _SensorState:
 
     __slots__ = ('axis', 'check', 'closing', 'config', 'counts', 'footprint', 'heard_stamp',
                  'configured_latency_s', 'last_ok_range', 'latency_s', 'memory_m',
-                 'memory_since', 'memory_stamp', 'periods', 'seen_m', 'seen_stamp', 'slot_s',
-                 'tables', 'timeout_s', 'travel_memo', 'validator')
+                 'memory_since', 'memory_stamp', 'periods', 'recent', 'seen_m', 'seen_stamp',
+                 'slot_s', 'tables', 'timeout_s', 'travel_memo', 'validator')
 
     def __init__(self, config: SensorConfig, footprint: Footprint, stale_after_s: float) -> None:
         self.tables: dict[float, list[float]] = {}  # heading -> travel per TABLE_STEP_M of range
@@ -179,6 +181,7 @@ class _SensorState:
         self.seen_stamp = math.nan
         self.last_ok_range: float | None = None
         self.closing = False
+        self.recent: deque[tuple[float, float]] = deque()  # (stamp s, range m), readings only
         self.memory_m: float | None = None
         self.memory_stamp = math.nan
         self.memory_since = math.nan  # when the obstacle's echo was lost
@@ -220,9 +223,17 @@ class Monitor:
 
     Feed it with :meth:`on_range`, :meth:`on_odometry` and :meth:`tick`, each with times in
     seconds; collect findings with :meth:`pop_events` and :meth:`finish`.
+
+    ``readings_only=True`` is for a configuration whose mounts, footprint and brakes are not
+    known (made up): the engine then judges only what the readings themselves show. It gives
+    no ``stuck`` verdicts (they need the mount's direction to know the robot moved along the
+    beam) and no ``overspeed`` findings (they need the robot's brakes), and the robot's own
+    motion no longer counts as closing in on an echo. The limit it still computes rests on the
+    made-up values: a caller in this mode must not present it.
     """
 
-    def __init__(self, config: Config) -> None:
+    def __init__(self, config: Config, *, readings_only: bool = False) -> None:
+        self.readings_only = readings_only
         lim = config.limits
         self._states = {s.name: _SensorState(s, config.robot.footprint, lim.stale_after_s)
                         for s in config.sensors}
@@ -306,7 +317,7 @@ class Monitor:
             raise KeyError(f'unknown sensor {reading.sensor!r}; configured: '
                            f'{", ".join(self._states)}')
         self._advance(reading.arrival_s)
-        check = st.validator.check(reading, self._pose)
+        check = st.validator.check(reading, None if self.readings_only else self._pose)
         st.check = check
         v = check.verdict
         st.counts[v._value_] += 1  # _value_: the plain attribute behind .value (hot path)
@@ -359,9 +370,12 @@ class Monitor:
             return  # stuck readings say nothing; the sensor is untrusted until they change
         if v in (Verdict.OK, Verdict.LATE):
             previous = st.last_ok_range
-            along = self._speed_along(st)
-            st.closing = ((previous is not None and previous - r > cfg.resolution_m)
-                          or along > STILL_SPEED_MPS)
+            if self.readings_only:
+                st.closing = self._closing_trend(st, r, t)
+            else:
+                along = self._speed_along(st)
+                st.closing = ((previous is not None and previous - r > cfg.resolution_m)
+                              or along > STILL_SPEED_MPS)
             st.last_ok_range = r
             st.seen_m, st.seen_stamp = st.clip_range(r), t
             st.memory_m = None
@@ -383,15 +397,28 @@ class Monitor:
                 closing_mps = max(0.0, self._speed_along(st))
                 st.memory_m = max(0.0, st.seen_m - closing_mps * max(0.0, t - st.seen_stamp))
                 st.memory_stamp = st.memory_since = t
+                kept = ('' if self.readings_only else
+                        f'; kept at {st.memory_m:.2f} m until a trusted echo')
                 self._stretch(cfg.name, 'no_echo', t,
-                              f'echo lost at {st.last_ok_range:.3f} m while closing in; '
-                              f'kept at {st.memory_m:.2f} m until a trusted echo')
+                              f'echo lost at {st.last_ok_range:.3f} m while closing in{kept}')
             st.closing = False
             st.last_ok_range = None
+            st.recent.clear()
             st.seen_m, st.seen_stamp = st.clip_range(cfg.max_range_m), t
 
+    @staticmethod
+    def _closing_trend(st: _SensorState, range_m: float, stamp_s: float) -> bool:
+        """Return True when the range fell by more than twice the resolution over the last
+        TREND_S (readings only: without the mount's direction, odometry cannot tell)."""
+        recent = st.recent
+        while recent and stamp_s - recent[0][0] > TREND_S:
+            recent.popleft()
+        closing = bool(recent) and recent[0][1] - range_m > 2 * st.config.resolution_m
+        recent.append((stamp_s, range_m))
+        return closing
+
     def _speed_along(self, st: _SensorState) -> float:
-        if self._odom is None:
+        if self._odom is None or self.readings_only:  # the axis is made up: no motion along it
             return 0.0
         return self._odom.vx_mps * float(st.axis[0]) + self._odom.vy_mps * float(st.axis[1])
 
@@ -471,7 +498,7 @@ class Monitor:
         target, reason, limiting, covering, fallback = self._bound(self._heading, now,
                                                                     odom_fresh)
         self._limit = self._rise_limited(target, now)
-        if odom_fresh:
+        if odom_fresh and not self.readings_only:
             self._check_overspeed(speed, now)
         return Decision(time_s=now, limit_mps=self._limit, target_mps=target,
                         heading_rad=self._heading, reason=reason, limiting_sensor=limiting,

@@ -10,10 +10,12 @@ Times in seconds, ranges in metres.
 from __future__ import annotations
 
 from collections import deque
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 import math
 import statistics
+
+import numpy as np
 
 from sonar_guard.core.acoustics import echo_timeout
 from sonar_guard.core.config import Config, SensorConfig
@@ -25,11 +27,13 @@ __all__ = [
     'Schedule',
     'SensorTiming',
     'estimated_firing_time',
+    'infer_slots',
     'slot_need_s',
 ]
 
 _CLASH_FRACTION = 0.9  # firings closer than this share of an echo timeout are a clash
 _MIN_PERIODS = 5  # measured periods needed before they replace the configured cycle
+_TOGETHER_SHARE = 0.5  # pulses in the air together this often: fired together by design
 
 
 def slot_need_s(sensor: SensorConfig) -> float:
@@ -218,3 +222,50 @@ class ClashDetector:
             if size < _CLASH_FRACTION * (timeouts[other] if gap >= 0 else timeout):
                 worst, nearest = (other, gap), size
         return worst
+
+
+def infer_slots(firings_s: Mapping[str, Sequence[float]],
+                timeouts_s: Mapping[str, float]) -> dict[str, int]:
+    """Guess the firing slots of sensors from when their pulses left (s), when none are given.
+
+    Two sensors whose pulses were in the air together (closer than the clash rule of
+    :class:`ClashDetector`) in at least half of the readings of each are taken as sharing a
+    slot by design; sharing is transitive. Slots are numbered in the order the groups first
+    fired. A clash is then what happens against that habit, not the habit itself.
+    """
+    names = [n for n in firings_s if len(firings_s[n])]
+    times = {n: np.sort(np.asarray(firings_s[n], dtype=np.float64)) for n in names}
+    group = {n: n for n in firings_s}
+
+    def root(n: str) -> str:
+        while group[n] != n:
+            group[n] = group[group[n]]
+            n = group[n]
+        return n
+
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            if (_together_share(times[a], times[b], timeouts_s[a], timeouts_s[b])
+                    >= _TOGETHER_SHARE
+                    and _together_share(times[b], times[a], timeouts_s[b], timeouts_s[a])
+                    >= _TOGETHER_SHARE):
+                group[root(b)] = root(a)
+    first: dict[str, float] = {}
+    for n in firings_s:
+        start = float(times[n][0]) if n in times else math.inf
+        first[root(n)] = min(first.get(root(n), math.inf), start)
+    order = sorted(first, key=lambda r: (first[r], r))
+    return {n: order.index(root(n)) for n in firings_s}
+
+
+def _together_share(a: np.ndarray, b: np.ndarray, timeout_a_s: float,
+                    timeout_b_s: float) -> float:
+    """Return the share of firings in ``a`` with a firing of ``b`` in the air at once."""
+    if a.size == 0 or b.size == 0:
+        return 0.0
+    k = np.searchsorted(b, a)  # b[k - 1] < a <= b[k]
+    before = a - b[np.maximum(k - 1, 0)]  # how long the last earlier b had been in the air
+    after = b[np.minimum(k, b.size - 1)] - a  # how long until the next b left
+    close = (((k > 0) & (before < _CLASH_FRACTION * timeout_b_s))
+             | ((k < b.size) & (after < _CLASH_FRACTION * timeout_a_s)))
+    return float(np.count_nonzero(close)) / a.size

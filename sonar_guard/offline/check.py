@@ -111,6 +111,8 @@ def report_json(run: CheckRun) -> dict[str, Any]:
         by_kind[e['kind']] += 1
     limits = [b['summary']['min_limit_mps'] for b in bags
               if b['summary']['min_limit_mps'] is not None]
+    skipped = sorted({k for r in run.results for k in r.skipped_checks})
+    notice = next((r.skipped_notice for r in run.results if r.skipped_notice), '')
     summary: dict[str, Any] = {
         'bags': len(run.results) + len(run.unusable),
         'checked': len(run.results),
@@ -124,6 +126,8 @@ def report_json(run: CheckRun) -> dict[str, Any]:
         'fail_on': sorted(run.fail_on),
         'findings': sum(1 for e in events if e['kind'] in run.fail_on),
         'min_limit_mps': min(limits) if limits else None,
+        'skipped_checks': skipped,
+        'skipped_notice': notice,
         'exit_code': run.exit_code,
         'caution': SAFETY_CAUTION,
     }
@@ -133,29 +137,37 @@ def report_json(run: CheckRun) -> dict[str, Any]:
 
 
 def print_summary(run: CheckRun, *, file: Any = None, max_events: int = 12) -> None:
-    """Print a readable summary: per bag, per sensor verdict shares and timing; findings."""
+    """Print a readable summary: per bag, per sensor verdict shares and timing; findings.
+
+    Each unit is said once, in the column header; the caution and the notice of skipped
+    checks are said once, the notice at the top.
+    """
     from rich.console import Console
+    from rich.padding import Padding
     from rich.table import Table
 
     console = Console(file=file or sys.stdout)
     if not console.is_terminal:
         console.width = max(console.width, 110)  # piped or captured: room for the table
+    notice = next((r.skipped_notice for r in run.results if r.skipped_notice), '')
+    if notice:
+        console.print(notice, style='bold yellow', highlight=False)
     for u in run.unusable:
-        console.print(f'[bold red]unusable[/] {u.path}: {u.reason}', markup=True,
-                      highlight=False)
+        console.print(f'[bold red]unusable[/] {_escape(u.path)}: {_escape(u.reason)}',
+                      markup=True, highlight=False)
     for r in run.results:
-        state = 'complete' if r.error is None else f'[red]INCOMPLETE: {r.error}[/]'
-        console.print(f'\n[bold]{_escape(r.path)}[/]  {r.duration_s:.1f} s of bag time, '
+        state = 'complete' if r.error is None else f'[red]INCOMPLETE: {_escape(r.error)}[/]'
+        console.print(f'\n[bold]{_escape(r.path)}[/]: {r.duration_s:.1f} s of bag time, '
                       f'{sum(s.readings for s in r.sensors)} readings, {state}',
                       highlight=False)
         console.print(f'  parameters: {_escape(r.config_source)}', style='dim', highlight=False)
         for note in r.notes:
             console.print(f'  note: {_escape(note)}', style='yellow', highlight=False)
         table = Table(show_edge=False, pad_edge=False)
-        for col in ('sensor', 'readings', 'ok', 'no echo', 'blind', 'other', 'period ms',
-                    'latency ms', 'range m'):
+        for col in ('sensor', 'readings', 'ok %', 'no echo %', 'blind %', 'other %',
+                    'period ms', 'latency ms', 'range m'):
             table.add_column(col, justify='left' if col == 'sensor' else 'right',
-                             no_wrap=col == 'sensor')
+                             no_wrap=True)
         for s in r.sensors:
             d = s.to_dict()
             n = max(s.readings, 1)
@@ -163,10 +175,12 @@ def print_summary(run: CheckRun, *, file: Any = None, max_events: int = 12) -> N
             table.add_row(
                 _escape(s.name), str(s.readings), _pct(s.counts['ok'], n),
                 _pct(s.counts['no_echo'], n), _pct(s.counts['blind'], n), _pct(other, n),
-                _pair(d['period_p50_s'], d['period_p99_s']),
-                _pair(d['latency_p50_s'], d['latency_p99_s']),
+                _ms(d['period_p50_s']), _ms(d['latency_p99_s']),
                 _span(d['range_min_m'], d['range_max_m']))
-        console.print(table)
+        console.print(Padding(table, (0, 0, 0, 2)))
+        console.print('  period: median time between readings; latency: worst-case detection '
+                      'latency (99th percentile) from the measured period', style='dim',
+                      highlight=False)
         findings = r.findings(run.fail_on)
         if not findings:
             console.print('  no findings', style='green')
@@ -176,11 +190,14 @@ def print_summary(run: CheckRun, *, file: Any = None, max_events: int = 12) -> N
             counts[e.kind] = counts.get(e.kind, 0) + 1
         console.print('  findings: ' + ', '.join(f'{k} {n}' for k, n in counts.items()),
                       style='bold')
+        events = Table(show_edge=False, pad_edge=False, box=None)
+        for col in ('start s', 'length s', 'kind', 'sensor', 'detail'):
+            events.add_column(col, justify='right' if col.endswith(' s') else 'left',
+                              no_wrap=col != 'detail')
         for e in findings[:max_events]:
-            who = e.sensor or 'robot'
-            console.print(f'    {e.t_start - r.t_start:8.2f} s +{e.t_end - e.t_start:5.2f} s '
-                          f'{e.kind:<10} {_escape(who):<14} {_escape(e.detail)}',
-                          highlight=False)
+            events.add_row(f'{e.t_start - r.t_start:.2f}', f'{e.t_end - e.t_start:.2f}',
+                           e.kind, _escape(e.sensor or 'robot'), _escape(e.detail))
+        console.print(Padding(events, (0, 0, 0, 4)))
         if len(findings) > max_events:
             console.print(f'    ... {len(findings) - max_events} more (see --json / --html)')
     console.print(f'\n{SAFETY_CAUTION}', style='dim', highlight=False)
@@ -192,13 +209,11 @@ def _escape(text: str) -> str:
 
 
 def _pct(count: int, n: int) -> str:
-    return f'{100.0 * count / n:.1f}%' if count else '-'
+    return f'{100.0 * count / n:.1f}' if count else '-'
 
 
-def _pair(a: float | None, b: float | None) -> str:
-    if a is None:
-        return '-'
-    return f'{a * 1e3:.0f}/{(b or a) * 1e3:.0f}'
+def _ms(value_s: float | None) -> str:
+    return '-' if value_s is None else f'{value_s * 1e3:.0f}'
 
 
 def _span(a: float | None, b: float | None) -> str:

@@ -7,24 +7,28 @@ fall after every reading and on the ``publish_rate`` grid. Results go into a
 """
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 import math
-import re
 from typing import Any
 
-from sonar_guard.core.config import Config, build_config
+from sonar_guard.core.config import Config
 from sonar_guard.core.monitor import Decision, Monitor
 from sonar_guard.core.readings import Verdict
 from sonar_guard.errors import RecordingError
 from sonar_guard.offline.bags import ODOMETRY_TYPE, RANGE_TYPE, BagSource, TopicInfo
+from sonar_guard.offline.readings_only import (
+    SKIPPED_CHECKS,
+    SKIPPED_NOTICE,
+    config_from_messages,
+    peek_readings,
+)
 from sonar_guard.offline.results import VERDICT_CODES, BagResult, SensorSummary
 from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
 
-__all__ = ['Wiring', 'Replayer', 'check_bag', 'config_from_messages', 'wire_topics']
+__all__ = ['Replayer', 'Wiring', 'check_bag', 'wire_topics']
 
 _CODES = VERDICT_CODES
-_PEEK_MESSAGES = 5000  # how far to look for a first message of each Range topic
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,44 +82,22 @@ def wire_topics(config: Config, topics: Mapping[str, TopicInfo]) -> tuple[Wiring
     return Wiring(sensors, odometry), notes
 
 
-def config_from_messages(firsts: Mapping[str, Any], odometry: str | None,
-                         base: Mapping[str, Any] | None = None) -> Config:
-    """Build a configuration for Range topics found by type, from their first messages.
-
-    Sensor limits (min/max range, field of view) come from the messages; everything else is
-    the schema default. Mounts are unknown: every sensor is taken as facing forward from the
-    middle of the default footprint.
-    """
-    params: dict[str, Any] = dict(base or {})
-    names: list[str] = []
-    for topic, msg in sorted(firsts.items()):
-        name = re.sub(r'[^A-Za-z0-9_]', '_', topic.strip('/')) or 'sonar'
-        if not name[0].isalpha():
-            name = 's_' + name
-        while name in names:
-            name += '_'
-        names.append(name)
-        params[f'sensors.{name}.topic'] = topic
-        params[f'sensors.{name}.min_range'] = float(msg.min_range)
-        params[f'sensors.{name}.max_range'] = float(msg.max_range)
-        params[f'sensors.{name}.field_of_view'] = float(msg.field_of_view)
-        params[f'sensors.{name}.slot'] = 0  # firing order unknown: one slot, no clash checks
-    params['sensor_names'] = names
-    if odometry:
-        params['odom_topic'] = odometry
-    return build_config(params, source='defaults from the recorded messages')
-
-
 class Replayer:
-    """Feed one recording's messages to a Monitor and collect what happens."""
+    """Feed one recording's messages to a Monitor and collect what happens.
+
+    ``readings_only``: the configuration's robot is made up (no parameter file); the engine
+    judges only the readings and the allowed speed is not recorded.
+    """
 
     def __init__(self, config: Config, wiring: Wiring, result: BagResult, *,
-                 on_decision: Callable[[Decision], None] | None = None) -> None:
+                 on_decision: Callable[[Decision], None] | None = None,
+                 readings_only: bool = False) -> None:
         self.config = config
         self.on_decision = on_decision
         self.wiring = wiring
         self.result = result
-        self.monitor = Monitor(config)
+        self.readings_only = readings_only
+        self.monitor = Monitor(config, readings_only=readings_only)
         self._summaries = {s.name: SensorSummary(s.name, s.topic) for s in config.sensors}
         for topic, name in wiring.sensors.items():
             self._summaries[name].topic = topic
@@ -177,7 +159,8 @@ class Replayer:
         if self.on_decision is not None:
             self.on_decision(decision)
         result = self.result
-        result.limit.put(t_s, decision.limit_mps)
+        if not self.readings_only:  # else the limit rests on a made-up robot: not shown
+            result.limit.put(t_s, decision.limit_mps)
         result.speed.put(t_s, decision.speed_mps)
         events = self.monitor.pop_events()
         if events:
@@ -196,16 +179,6 @@ class Replayer:
         return self.result
 
 
-def _first_messages(bag: BagSource, topics: Iterable[str]) -> dict[str, Any]:
-    wanted = set(topics)
-    firsts: dict[str, Any] = {}
-    for i, (topic, _, msg) in enumerate(bag.messages(sorted(wanted))):
-        firsts.setdefault(topic, msg)
-        if len(firsts) == len(wanted) or i >= _PEEK_MESSAGES:
-            break
-    return firsts
-
-
 def check_bag(path: str, config: Config | None, *, config_source: str = '',
               progress: Callable[[float], None] | None = None) -> BagResult:
     """Check one recording; raises RecordingError when it cannot be opened at all.
@@ -215,23 +188,27 @@ def check_bag(path: str, config: Config | None, *, config_source: str = '',
     """
     with BagSource(path) as bag:
         notes: list[str] = []
+        readings_only = config is None
         if config is None:
             ranges = bag.topics_of_type(RANGE_TYPE)
             if not ranges:
                 raise RecordingError(f'{path}: no {RANGE_TYPE} topics and no --params given')
             odoms = bag.topics_of_type(ODOMETRY_TYPE)
-            config = config_from_messages(_first_messages(bag, ranges),
-                                          odoms[0] if odoms else None)
-            config_source = ('no --params: sensors found by message type, limits from their '
-                             'first messages, every other value the default; mounts unknown '
-                             '(all taken as facing forward): speed limits are indicative only')
+            firsts, samples = peek_readings(bag, ranges)
+            config, found = config_from_messages(firsts, odoms[0] if odoms else None, samples)
+            notes.extend(found)
+            config_source = ('none (no --params): sensors found by message type, min and max '
+                             'range and field of view from their messages, thresholds the '
+                             'defaults')
             if len(odoms) > 1:
                 notes.append(f'several odometry topics; using {odoms[0]}')
         wiring, wiring_notes = wire_topics(config, bag.topics)
         notes.extend(wiring_notes)
         result = BagResult(path=str(path), config=config, config_source=config_source,
                            notes=notes)
-        replayer = Replayer(config, wiring, result)
+        if readings_only:
+            result.skipped_checks, result.skipped_notice = SKIPPED_CHECKS, SKIPPED_NOTICE
+        replayer = Replayer(config, wiring, result, readings_only=readings_only)
         topics = list(wiring.sensors) + ([wiring.odometry] if wiring.odometry else [])
         span = max(bag.end_s - bag.start_s, 1e-9)
         next_report = 0.0

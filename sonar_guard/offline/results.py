@@ -294,7 +294,7 @@ class BagResult:
             'events': len(self.events), 'events_by_kind': by_kind,
             'min_limit_mps': _finite_or_none(float(limits.min())) if limits.size else None,
             'complete': self.error is None, 'error': self.error, 'notes': list(self.notes),
-            'caution': SAFETY_CAUTION,
+            'skipped_checks': list(self.skipped_checks), 'caution': SAFETY_CAUTION,
         }
 
     def to_dict(self) -> dict[str, Any]:

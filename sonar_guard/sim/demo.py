@@ -16,8 +16,9 @@ from pathlib import Path
 from typing import Any
 
 from sonar_guard.core.config import Config
-from sonar_guard.core.monitor import Monitor
+from sonar_guard.core.monitor import EVENT_KINDS, Monitor
 from sonar_guard.offline.bagwrite import write_bag
+from sonar_guard.offline.causes import EVENT_CAUSES
 from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
 from sonar_guard.sim.drive import Path as DrivePath
 from sonar_guard.sim.drive import Run, SpeedProfile
@@ -25,7 +26,7 @@ from sonar_guard.sim.sonar import SonarPhysics
 from sonar_guard.sim.world import AirZone, Disc, MovingBox, SwingingDoor, Walker, Wall, World
 
 __all__ = ['DEMO_DURATION_S', 'PLANNED', 'Planned', 'corridor_run', 'corridor_world',
-           'match_planned', 'write_demo_bag']
+           'explain_findings', 'match_planned', 'write_demo_bag']
 
 DEMO_DURATION_S = 75.0
 START_TIME_S = 1_767_225_600.0  # bag time of the start (an invented date)
@@ -41,19 +42,21 @@ class Planned:
     kinds: tuple[str, ...]
     start: float
     end: float
+    label: str = ''  # a short name for one-line summaries
 
 
 # Windows follow from the world and the cart's speed profile below (checked by the tests).
 PLANNED: tuple[Planned, ...] = (
     Planned('room door swings open into the corridor: the cart waits',
-            ('no_echo', 'jump'), 8.0, 18.0),
-    Planned('trolley pushed across in front of the cart', ('jump', 'no_echo'), 23.0, 32.0),
+            ('no_echo', 'jump'), 8.0, 18.0, 'door'),
+    Planned('trolley pushed across in front of the cart', ('jump', 'no_echo'), 23.0, 32.0,
+            'trolley'),
     Planned('glass partition at a steep angle: the echo glances off', ('no_echo',), 33.0,
-            45.0),
+            45.0, 'glass partition'),
     Planned('person steps right up to the front of the cart (into the ring-down range)',
-            ('no_echo', 'blind'), 52.0, 64.0),
+            ('no_echo', 'blind'), 52.0, 64.0, 'person'),
     Planned('cold loading dock: sensors read long, the cart is pushed faster than allowed',
-            ('overspeed',), 64.0, 75.0),
+            ('overspeed',), 64.0, 75.0, 'cold dock'),
 )
 
 def corridor_world() -> World:
@@ -152,6 +155,37 @@ def match_planned(events: Sequence[Any], t0: float) -> list[tuple[Planned, list[
                 and p.start <= e.t_start - t0 <= p.end]
         out.append((p, hits))
     return out
+
+
+def explain_findings(events: Sequence[Any], t0: float) -> list[str]:
+    """Return one line per kind of finding: how many, which planned happening shows them,
+    and why the others (not planned) happened. Times are s from the start (``t0``)."""
+    lines = []
+    for kind in EVENT_KINDS:
+        found = [e for e in events if e.kind == kind]
+        if not found:
+            continue
+        planned: dict[str, int] = {}
+        others = []
+        for e in found:
+            t = e.t_start - t0
+            p = next((p for p in PLANNED if kind in p.kinds and p.start <= t <= p.end), None)
+            if p is None:
+                during = next((p for p in PLANNED if p.start <= t <= p.end), None)
+                others.append(f'{t:.1f} s {e.sensor or "robot"}'
+                              + (f' ({during.label})' if during else ''))
+            else:
+                planned[p.label] = planned.get(p.label, 0) + 1
+        parts = []
+        if planned:
+            parts.append(('all ' if not others else '') + 'planned ('
+                         + ', '.join(f'{name} {n}' for name, n in planned.items()) + ')')
+        if others:
+            more = ', ...' if len(others) > 4 else ''
+            parts.append(f'not planned {len(others)}, at {", ".join(others[:4])}{more}: '
+                         f'{EVENT_CAUSES[kind]}')
+        lines.append(f'{kind} {len(found)}: ' + '; '.join(parts))
+    return lines
 
 
 def write_demo_bag(path: Path, config: Config, *, duration_s: float = DEMO_DURATION_S,

@@ -47,11 +47,11 @@ def v_max(free, latency, decel, margin):
 class Run:
     """Feed a monitor the way a robot would: odometry at 50 Hz, sensors firing slot by slot."""
 
-    def __init__(self, overrides=None):
+    def __init__(self, overrides=None, *, readings_only=False):
         params = dict(SCENARIO)
         params.update(overrides or {})
         self.config = make_config(params)
-        self.m = Monitor(self.config)
+        self.m = Monitor(self.config, readings_only=readings_only)
         self.t = 0.0
         self.stamps: dict[str, list[float]] = {'ahead': [], 'behind': []}
         self.ranges: dict[str, list[float]] = {'ahead': [], 'behind': []}
@@ -299,6 +299,33 @@ def test_overspeed_is_reported_after_the_braking_allowance():
     events = [e for e in run.m.finish() if e.kind == 'overspeed']
     assert len(events) == 1 and events[0].sensor is None
     assert events[0].t_end - events[0].t_start > 0.2 + 0.12
+
+
+@pytest.mark.parametrize('readings_only', [False, True], ids=['robot known', 'readings only'])
+def test_readings_only_judges_no_overspeed_and_no_stuck(readings_only):
+    """Without the robot's brakes and mounts (readings_only) the engine neither raises
+    overspeed nor calls an unchanged range stuck; with them, the same stream shows both."""
+    run = Run({'limits.overspeed_grace': 0.2, 'sonar.stuck_count': 5,
+               'sonar.stuck_travel': 0.2}, readings_only=readings_only)
+    run.drive(3.0, vx=1.2, ahead=lambda t: 0.8)  # too fast, and 0.8 m ahead never changes
+    kinds = {e.kind for e in run.m.finish()}
+    assert ({'overspeed', 'stuck'} & kinds) == (set() if readings_only
+                                                else {'overspeed', 'stuck'})
+    counts = run.m.verdict_counts('ahead')
+    assert (counts['stuck'] == 0) == readings_only
+
+
+def test_readings_only_calls_a_falling_range_closing_in_when_its_echo_is_lost():
+    """Readings only: a range falling over half a second, then no echo, is a lost echo while
+    closing in (no_echo), found from the readings alone; a steady range then no echo is not."""
+    falling = Run(readings_only=True)
+    falling.drive(1.0, vx=0.0, ahead=lambda t: 2.0 - 0.3 * t)  # 0.3 m/s nearer, robot still
+    falling.drive(0.5, vx=0.0)  # echo lost
+    assert [e.sensor for e in falling.m.finish() if e.kind == 'no_echo'] == ['ahead']
+    steady = Run(readings_only=True)
+    steady.drive(1.0, vx=0.0, ahead=lambda t: 2.0)
+    steady.drive(0.5, vx=0.0)
+    assert [e for e in steady.m.finish() if e.kind == 'no_echo'] == []
 
 
 def test_short_excess_while_braking_is_not_overspeed():

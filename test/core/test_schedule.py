@@ -10,7 +10,13 @@ import pytest
 from testkit import make_config
 
 from sonar_guard.core.acoustics import detection_latency
-from sonar_guard.core.schedule import ClashDetector, PeriodTracker, Schedule, estimated_firing_time
+from sonar_guard.core.schedule import (
+    ClashDetector,
+    PeriodTracker,
+    Schedule,
+    estimated_firing_time,
+    infer_slots,
+)
 
 
 def c_f1(temp_c):
@@ -133,3 +139,48 @@ class TestClash:
         clash = ClashDetector(config.sensors)
         clash.check('ahead', 1.0, math.inf)
         assert clash.check('behind', 1.0, math.inf) is None
+
+
+class TestInferSlots:
+    """Firing slots guessed from when pulses left, for recordings without a parameter file."""
+
+    TIMEOUT = 2 * 4.0 / c_f1(20.0)  # reference.md sec. 2: 2R/c at 4 m, 20 degC
+
+    def firings(self, offsets, cycle, count=100, skip=()):
+        """Fire each sensor at its offset (s) into a repeating cycle (s)."""
+        return {name: [k * cycle + off for k in range(count) if (name, k) not in skip]
+                for name, off in offsets.items()}
+
+    def test_sensors_one_after_another_get_their_own_slots_in_firing_order(self):
+        """Three sensors, each one timeout after the last: three slots, in firing order."""
+        t = self.TIMEOUT
+        slots = infer_slots(self.firings({'c': 2 * t, 'a': 0.0, 'b': t}, 3 * t),
+                            dict.fromkeys('abc', t))
+        assert slots == {'a': 0, 'b': 1, 'c': 2}
+
+    def test_sensors_that_always_fire_together_share_a_slot(self):
+        """Pairs firing within a millisecond every cycle share a slot (by design, e.g. facing
+        away from each other); sharing is transitive."""
+        t = self.TIMEOUT
+        slots = infer_slots(self.firings({'a': 0.0, 'b': 0.001, 'c': 0.0015, 'd': t}, 2 * t),
+                            dict.fromkeys('abcd', t))
+        assert slots['a'] == slots['b'] == slots['c'] == 0 and slots['d'] == 1
+
+    def test_an_occasional_overlap_is_not_taken_for_a_shared_slot(self):
+        """A sensor that fires early in a few cycles (a clash) keeps its own slot, so the
+        clash detector can still flag those cycles."""
+        t = self.TIMEOUT
+        firings = self.firings({'a': 0.0, 'b': t}, 2 * t)
+        firings['b'][:10] = [k * 2 * t + 0.002 for k in range(10)]  # 10 % of cycles early
+        slots = infer_slots(firings, dict.fromkeys('ab', t))
+        assert slots['a'] != slots['b']
+        config = make_config({'sensors.ahead.slot': slots['a'],
+                              'sensors.behind.slot': slots['b']})
+        clash = ClashDetector(config.sensors)
+        assert clash.check('ahead', 0.0 + 1e-3, 0.1) is None  # fired ~0 (0.1 m flight)
+        assert clash.check('behind', 0.002 + self.TIMEOUT, 4.0) is not None  # fired at 2 ms
+
+    def test_a_sensor_without_readings_gets_a_slot_of_its_own(self):
+        """No firing times: a slot after the others, never merged."""
+        slots = infer_slots({'a': [0.0, 0.1], 'quiet': []}, {'a': 0.02, 'quiet': 0.02})
+        assert slots == {'a': 0, 'quiet': 1}

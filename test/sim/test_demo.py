@@ -1,11 +1,16 @@
 """The demo end to end: simulate the invented corridor run, check it, write the report."""
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 
 import pytest
 
+from sonar_guard import SAFETY_CAUTION
 from sonar_guard.cli import main
+from sonar_guard.core.monitor import EVENT_KINDS
+from sonar_guard.offline.causes import EVENT_CAUSES
 from sonar_guard.sim.demo import PLANNED
 
 
@@ -13,7 +18,10 @@ from sonar_guard.sim.demo import PLANNED
 def demo(tmp_path_factory):
     """Run `sonar-guard demo` once into a temporary folder."""
     out = tmp_path_factory.mktemp('demo')
-    code = main(['demo', '--out', str(out)])
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(['demo', '--out', str(out)])
+    (out / 'printed.txt').write_text(printed.getvalue(), encoding='utf-8')
     return code, out
 
 
@@ -46,3 +54,31 @@ def test_shortened_demo_runs(tmp_path, capsys):
     assert main(['demo', '--out', str(tmp_path), '--duration', '10']) == 0
     out = capsys.readouterr().out
     assert 'report:' in out and (tmp_path / 'report.html').is_file()
+
+
+def test_the_summary_explains_every_kind_of_finding_once(demo):
+    """Every kind the check produced, planned or not, gets one line saying how many and why
+    (the planned happening, or the cause of that kind); the caution is said once."""
+    _, out = demo
+    printed = (out / 'printed.txt').read_text(encoding='utf-8')
+    report = json.loads((out / 'report.json').read_text(encoding='utf-8'))
+    produced: dict[str, int] = {}
+    for e in report['events']:
+        produced[e['kind']] = produced.get(e['kind'], 0) + 1
+    assert produced
+    lines = printed.splitlines()
+    for kind, count in produced.items():
+        mine = [line for line in lines if line.strip().startswith(f'{kind} {count}: ')]
+        assert len(mine) == 1, (kind, printed)
+        t0 = report['bags'][0]['summary']['t_start']
+        unplanned = [e for e in report['events'] if e['kind'] == kind and not any(
+            kind in p.kinds and p.start <= e['t_start'] - t0 <= p.end for p in PLANNED)]
+        assert ('not planned' in mine[0]) == bool(unplanned)
+        if unplanned:
+            assert EVENT_CAUSES[kind] in mine[0]
+    assert printed.count(SAFETY_CAUTION) == 1
+
+
+def test_every_kind_of_finding_has_a_cause():
+    """The cause table covers the contract's event kinds exactly (design.md)."""
+    assert set(EVENT_CAUSES) == set(EVENT_KINDS)
