@@ -2,9 +2,11 @@
 from __future__ import annotations
 
 import base64
+import html
 from html.parser import HTMLParser
 import math
 from pathlib import Path
+import re
 
 import numpy as np
 import pytest
@@ -34,9 +36,14 @@ class Page(HTMLParser):
         self.attrs: list[tuple[str, dict[str, str | None]]] = []
         self.text: list[str] = []
         self.tables: list[dict] = []  # {'class': ..., 'rows': [[cell text, ...], ...]}
+        self.items: list[dict] = []  # status lines: {'list', 'class', 'sensor', 'text'}
         self._cell: list[str] | None = None
         self._row: list[str] | None = None
         self._row_titles: list[str | None] = []
+        self._row_spans: list[tuple[int, int]] = []
+        self._in_head = False
+        self._lists: list[str] = []  # classes of the open <ul> elements
+        self._open_items: list[dict] = []
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
@@ -45,12 +52,23 @@ class Page(HTMLParser):
         if tag not in VOID:
             self.stack.append(tag)
         if tag == 'table':
-            self.tables.append({'class': a.get('class'), 'rows': [], 'titles': []})
+            self.tables.append({'class': a.get('class'), 'rows': [], 'titles': [], 'head': 0,
+                                'spans': []})
+        elif tag == 'thead':
+            self._in_head = True
+        elif tag == 'ul':
+            self._lists.append(a.get('class') or '')
+        elif tag == 'li' and self._lists and self._lists[-1].startswith('health'):
+            item = {'list': self._lists[-1], 'class': a.get('class'),
+                    'sensor': a.get('data-sensor'), 'text': []}
+            self.items.append(item)
+            self._open_items.append(item)
         elif tag == 'tr':
-            self._row, self._row_titles = [], []
+            self._row, self._row_titles, self._row_spans = [], [], []
         elif tag in ('td', 'th'):
             self._cell = []
             self._row_titles.append(a.get('title'))
+            self._row_spans.append((int(a.get('rowspan', 1)), int(a.get('colspan', 1))))
 
     def handle_startendtag(self, tag, attrs):
         self.handle_starttag(tag, attrs)
@@ -68,12 +86,24 @@ class Page(HTMLParser):
         elif tag == 'tr' and self._row is not None and self.tables:
             self.tables[-1]['rows'].append(self._row)
             self.tables[-1]['titles'].append(self._row_titles)
+            self.tables[-1]['spans'].append(self._row_spans)
+            self.tables[-1]['head'] += self._in_head
             self._row = None
+        elif tag == 'thead':
+            self._in_head = False
+        elif tag == 'ul' and self._lists:
+            self._lists.pop()
+        elif tag == 'li' and self._open_items and self._lists[-1:] == [
+                self._open_items[-1]['list']]:
+            item = self._open_items.pop()
+            item['text'] = ' '.join(''.join(item['text']).split())
 
     def handle_data(self, data):
         self.text.append(data)
         if self._cell is not None:
             self._cell.append(data)
+        for item in self._open_items:
+            item['text'].append(data)
 
     @property
     def plain(self) -> str:
@@ -81,6 +111,30 @@ class Page(HTMLParser):
 
     def images(self) -> list[str]:
         return [a.get('src') or '' for tag, a in self.attrs if tag == 'img']
+
+
+def table(page: Page, css: str) -> list[dict[str, str]]:
+    """Return the body rows of the first table of class ``css`` keyed by column name.
+
+    A column's name is what a reader sees above it: a header spanning both header rows, or
+    the header under a group header (``colspan``), e.g. 'nearest' under 'range seen (m)'.
+    """
+    found = next(t for t in page.tables if t['class'] == css)
+    head, body = found['rows'][:found['head']], found['rows'][found['head']:]
+    names = head[0]
+    if len(head) == 2:
+        below = iter(head[1])
+        names = []
+        for cell, (rowspan, colspan) in zip(head[0], found['spans'][0]):
+            names += [cell] if rowspan == 2 else [next(below) for _ in range(colspan)]
+    return [dict(zip(names, row)) for row in body]
+
+
+def groups(page: Page, css: str) -> list[str]:
+    """Return the group headers (those spanning columns) of the first table of class ``css``."""
+    found = next(t for t in page.tables if t['class'] == css)
+    return [cell for cell, (rowspan, _) in zip(found['rows'][0], found['spans'][0])
+            if found['head'] == 2 and rowspan == 1]
 
 
 def parse(text: str) -> Page:
@@ -164,47 +218,64 @@ def test_report_opens_with_the_caution_and_says_what_was_checked(one):
     assert 'Checked 1 recording: 19 range readings from 2 sensors' in page.plain
 
 
+def test_the_caution_is_said_once_in_the_whole_page():
+    """However many recordings, the caution appears once (not per section, not in the footer)."""
+    page = parse(render_html([make_result(), make_result(path='/bags/run_2')]))
+    assert page.plain.count(SAFETY_CAUTION) == 1
+
+
 def test_every_sensor_and_every_event_kind_is_listed(one):
     """Sensor names and topics in the sensor table; each event kind and sensor in the events."""
     result = make_result()
     _, page = one
-    sensor_table = next(t for t in page.tables if t['rows'][0][:2] == ['sensor', 'topic'])
-    assert [row[:2] for row in sensor_table['rows'][1:]] == [['ahead', 'sonar/ahead'],
-                                                             ['behind', 'sonar/behind']]
-    events = next(t for t in page.tables if t['class'] == 'events')['rows'][1:]
-    assert {row[1] for row in events} == {e.kind for e in result.events}
-    assert {row[2] for row in events} == {'ahead', 'behind', 'robot'}
+    sensors = table(page, 'sensors')
+    assert [(r['sensor'], r['topic']) for r in sensors] == [('ahead', 'sonar/ahead'),
+                                                            ('behind', 'sonar/behind')]
+    events = table(page, 'events')
+    assert {row['kind'] for row in events} == {e.kind for e in result.events}
+    assert {row['sensor'] for row in events} == {'ahead', 'behind', 'robot'}
 
 
 def test_verdict_shares_are_percentages_of_the_sensor_readings(one):
     """ahead: 7 ok of 12 readings is 58.3 %, 2 blind 16.7 %; behind: 5 no_echo of 7 is 71.4 %."""
     _, page = one
-    table = next(t for t in page.tables if t['rows'][0][:2] == ['sensor', 'topic'])
-    head = table['rows'][0]
-    rows = {row[0]: dict(zip(head, row)) for row in table['rows'][1:]}
-    assert rows['ahead']['readings'] == '12'
-    assert rows['ahead']['ok %'] == f'{100 * 7 / 12:.1f}'
-    assert rows['ahead']['blind %'] == f'{100 * 2 / 12:.1f}'
-    assert rows['behind']['no_echo %'] == f'{100 * 5 / 7:.1f}'
-    assert rows['behind']['ok %'] == '0'
-    assert rows['ahead']['range seen (m)'] == '0.05\u20133.90'
+    shares = {row['sensor']: row for row in table(page, 'verdicts')}
+    sensors = {row['sensor']: row for row in table(page, 'sensors')}
+    assert sensors['ahead']['readings'] == '12'
+    assert shares['ahead']['ok'] == f'{100 * 7 / 12:.1f}'
+    assert shares['ahead']['blind'] == f'{100 * 2 / 12:.1f}'
+    assert shares['behind']['no_echo'] == f'{100 * 5 / 7:.1f}'
+    assert shares['behind']['ok'] == '0'
+    assert (sensors['ahead']['nearest'], sensors['ahead']['farthest']) == ('0.05', '3.90')
+    assert groups(page, 'verdicts') == ['share of readings (%)']
+
+
+def test_verdicts_that_never_occur_are_left_out_of_the_shares():
+    """Only ok and the verdicts some sensor had get a column; the page says how many are out."""
+    result = make_result()
+    result.sensors = result.sensors[:1]  # ahead: ok, blind, no_echo, jump, late
+    page = parse(render_html([result]))
+    row = table(page, 'verdicts')[0]
+    assert list(row) == ['sensor', 'ok', 'blind', 'no_echo', 'late', 'jump']  # Verdict order
+    assert 'left out (3)' in page.plain
 
 
 def test_summary_gives_duration_readings_events_lowest_limit_and_status():
     """One row per recording; an error replaces 'complete' with the reason."""
     broken = make_result(path='/bags/cut', error='chunk 3 is truncated')
     page = parse(render_html([make_result(), broken]))
-    table = page.tables[0]
-    head = table['rows'][0]
-    rows = [dict(zip(head, row)) for row in table['rows'][1:]]
-    assert rows[0]['recording'] == '/bags/run_1'
+    rows = table(page, 'summary')
+    assert rows[0]['recording'] == 'run_1'  # the full path heads its section
     assert rows[0]['duration (s)'] == '1.2'
     assert rows[0]['readings'] == '19'
     assert rows[0]['events'] == '5'
-    assert rows[0]['overspeed'] == '1' and rows[0]['stale'] == '1'
-    assert rows[0]['lowest limit (m/s)'] == '0.00'
+    assert rows[0]['findings by kind'] == ('blind\u00a01 stale\u00a01 jump\u00a01 '
+                                          'slot_clash\u00a01 overspeed\u00a01')
+    assert rows[0]['lowest allowed speed (m/s)'] == '0.00'
     assert rows[0]['status'] == 'complete'
     assert rows[1]['status'] == 'stopped early: chunk 3 is truncated'
+    links = [a for tag, a in page.attrs if tag == 'a' and a.get('href') == '#bag-2']
+    assert links and links[0]['title'] == '/bags/cut'
 
 
 def test_hostile_text_from_a_recording_is_escaped_everywhere():
@@ -249,26 +320,27 @@ def test_report_loads_nothing_from_outside(one):
 
 
 def test_event_times_are_relative_with_the_bag_time_alongside(one):
-    """Start and end in s since the bag start; the bag time in the cell's title and a column."""
+    """Start and end in s since the bag start; the bag time in the cell's title and above."""
     _, page = one
-    table = next(t for t in page.tables if t['class'] == 'events')
-    head = table['rows'][0]
-    blind = next(i for i, row in enumerate(table['rows']) if row[1] == 'blind')
-    row = dict(zip(head, table['rows'][blind]))
-    titles = dict(zip(head, table['titles'][blind]))
-    assert row['start (s)'] == '0.600' and row['end (s)'] == '0.700'
-    assert row['duration (s)'] == '0.100'
-    assert titles['start (s)'].startswith(f'bag time {T0 + 0.6:.3f} s')
+    found = next(t for t in page.tables if t['class'] == 'events')
+    rows = table(page, 'events')
+    blind = next(i for i, row in enumerate(rows) if row['kind'] == 'blind')
+    row = rows[blind]
+    titles = dict(zip(row, found['titles'][found['head'] + blind]))
+    assert row['start'] == '0.600' and row['end'] == '0.700'
+    assert row['duration'] == '0.100'
     # 1_700_000_000.6 s Unix time is 2023-11-14 22:13:20.600 UTC (datetime, stdlib)
-    assert row['start, bag time'] == f'{T0 + 0.6:.3f} s (2023-11-14 22:13:20.600 UTC)'
+    assert titles['start'] == f'bag time {T0 + 0.6:.3f} s (2023-11-14 22:13:20.600 UTC)'
+    # 1_700_000_000 s is 2023-11-14 22:13:20 UTC (datetime, stdlib)
+    assert f'bag time {T0:.3f} s (2023-11-14 22:13:20.000 UTC)' in page.plain
+    assert groups(page, 'events') == ['time (s)']
 
 
 def test_events_are_listed_by_start_time(one):
     """The events table is sorted by start time whatever order the result holds them in."""
     result = make_result()
     _, page = one
-    table = next(t for t in page.tables if t['class'] == 'events')
-    starts = [float(row[3]) for row in table['rows'][1:]]
+    starts = [float(row['start']) for row in table(page, 'events')]
     assert starts == sorted(round(e.t_start - T0, 3) for e in result.events)
 
 
@@ -277,9 +349,9 @@ def test_events_table_is_capped_and_says_how_many_more():
     many = [Event('jump', 'ahead', T0 + 0.001 * i, T0 + 0.001 * i, f'jump {i}')
             for i in range(510)]
     page = parse(render_html([make_result(events=many[::-1])], max_events=500))
-    table = next(t for t in page.tables if t['class'] == 'events')
-    assert len(table['rows']) - 1 == 500
-    assert table['rows'][-1][-1] == 'jump 499'
+    rows = table(page, 'events')
+    assert len(rows) == 500
+    assert rows[-1]['detail'] == 'jump 499'
     assert '10 more events not shown' in page.plain
 
 
@@ -287,8 +359,7 @@ def test_default_cap_is_500_rows():
     """Without max_events the table stops at 500 rows."""
     many = [Event('jump', 'ahead', T0 + 0.001 * i, T0 + 0.001 * i, 'j') for i in range(501)]
     page = parse(render_html([make_result(events=many)]))
-    table = next(t for t in page.tables if t['class'] == 'events')
-    assert len(table['rows']) - 1 == 500
+    assert len(table(page, 'events')) == 500
     assert '1 more event not shown' in page.plain
 
 
@@ -311,6 +382,161 @@ def test_no_recordings_at_all_still_renders():
     page = parse(render_html([]))
     assert SAFETY_CAUTION in page.plain
     assert page.images() == []
+
+
+# ------------------------------------------------------------------ diagnosis
+
+
+def status_lines(page: Page, compact: bool = False) -> list[dict]:
+    want = 'health compact' if compact else 'health'
+    return [item for item in page.items if item['list'] == want]
+
+
+def test_each_recording_opens_with_a_status_line_per_sensor_with_its_deciding_number():
+    """Right under the heading, before any table: one line per sensor with level and share."""
+    text = render_html([make_result()])
+    section = text[text.index('<section class="bag"'):]
+    assert section.index('<ul class="health">') < section.index('<table')
+    page = parse(text)
+    lines = {item['sensor']: item for item in status_lines(page)}
+    assert set(lines) == {'ahead', 'behind'}
+    # ahead: 1 jump in 12 readings; behind: invalid + stale = 2 of 7 readings discarded
+    assert f'a jump in {100 / 12:.1f} % of 12 readings' in lines['ahead']['text']
+    assert lines['ahead']['class'] == 'lvl-degraded'
+    assert f'{100 * 2 / 7:.0f} % of 7 readings discarded' in lines['behind']['text']
+    assert lines['behind']['class'] == 'lvl-unusable'
+    order = [item['sensor'] for item in status_lines(page)]
+    assert order == ['behind', 'ahead']  # worst first
+
+
+def test_a_sensor_that_lost_90_percent_of_its_echoes_never_reads_as_fine():
+    """9 of 10 readings no_echo: 'degraded' in words and a triangle, not the fine mark."""
+    lost = summary('front_center', 'sonar/front_center', ['ok'] + ['no_echo'] * 9,
+                   [1.0] + [math.inf] * 9)
+    page = parse(render_html([make_result(sensors=[lost], events=[])]))
+    for item in status_lines(page) + status_lines(page, compact=True):
+        if item['sensor'] == 'front_center':
+            assert item['class'] == 'lvl-degraded'
+            assert item['text'].startswith('\u25b2 degraded front_center: no echo in 90 %')
+            assert 'fine' not in item['text'] and '\u2713' not in item['text']
+
+
+def test_advice_is_given_for_each_degraded_or_unusable_sensor_and_not_for_fine_ones():
+    """'Next:' with one sentence on every line that is not fine; fine lines have none."""
+    fine = summary('steady', 'sonar/steady', ['ok'] * 10, [1.0] * 10)
+    page = parse(render_html([make_result(sensors=[*make_result().sensors, fine])]))
+    lines = status_lines(page)
+    assert {item['class'] for item in lines} == {'lvl-fine', 'lvl-degraded', 'lvl-unusable'}
+    for item in lines:
+        if item['class'] == 'lvl-fine':
+            assert 'Next:' not in item['text'], item
+        else:
+            assert re.search(r'Next: Check [^.]+\.$', item['text']), item
+
+
+def test_summary_lists_every_sensor_compactly_without_advice():
+    """The summary names each sensor once: problems one per line, the fine ones together."""
+    fine = [summary(n, f'sonar/{n}', ['ok'] * 4, [1.0] * 4) for n in ('left', 'right')]
+    page = parse(render_html([make_result(sensors=[*make_result().sensors, *fine])]))
+    lines = status_lines(page, compact=True)
+    assert [item['class'] for item in lines] == ['lvl-unusable', 'lvl-degraded', 'lvl-fine']
+    assert lines[-1]['text'] == '\u2713 fine left, right'
+    assert not any('Next:' in item['text'] for item in lines)
+
+
+def test_levels_differ_in_word_and_symbol_not_only_colour(one):
+    """Each level's badge carries its own word and its own symbol."""
+    _, page = one
+    marks = {item['class']: item['text'].split()[:2] for item in page.items}
+    assert marks['lvl-unusable'] == ['\u2716', 'unusable']
+    assert marks['lvl-degraded'] == ['\u25b2', 'degraded']
+
+
+NOTICE = ('No parameter file: stuck and overspeed were not checked; pass --params with the '
+          "robot's parameter file to check them.")
+
+
+def test_the_skipped_notice_is_shown_once_near_the_top_however_many_recordings_share_it():
+    """Two recordings with the same notice: one box before the summary, naming both."""
+    skipped = {'skipped_checks': ('stuck', 'overspeed'), 'skipped_notice': NOTICE}
+    text = render_html([make_result(**skipped), make_result(path='/bags/run_2', **skipped)])
+    page = parse(text)
+    assert page.plain.count(NOTICE) == 1
+    assert text.index('class="skipped"') < text.index('id="summary"')
+    assert (f'{html.escape(NOTICE)} (recordings <a href="#bag-1">1</a>, '
+            '<a href="#bag-2">2</a>)') in text
+    assert page.plain.count('Checks not run: stuck, overspeed') == 2  # a pointer per section
+
+
+def test_different_notices_are_each_shown_once_and_none_when_every_check_ran():
+    """Distinct sentences each once; no box at all when no recording skipped a check."""
+    other = 'No parameter file: overspeed was not checked.'
+    page = parse(render_html([make_result(skipped_notice=NOTICE),
+                              make_result(skipped_notice=other), make_result()]))
+    assert page.plain.count(NOTICE) == 1 and page.plain.count(other) == 1
+    assert 'class="skipped"' not in render_html([make_result()])
+
+
+def test_a_recording_without_an_allowed_speed_says_it_was_not_computed():
+    """Empty limit series: the caption and the scope say so; the summary shows a dash."""
+    result = make_result(skipped_checks=('overspeed',), skipped_notice=NOTICE)
+    result.limit = BagResult('/b', make_config(), '').limit  # a fresh, empty series
+    page = parse(render_html([result]))
+    assert 'the allowed speed was not computed for this recording' in page.plain
+    assert 'the allowed speed was not computed, and findings' in page.plain
+    assert table(page, 'summary')[0]['lowest allowed speed (m/s)'] == '\u2013'
+
+
+# ------------------------------------------------------------------ tables that fit
+
+NUMBER = re.compile(r'^(-?\d+(\.\d+)?|\u2013)$')
+TEXT_COLUMNS = {'sensor', 'topic', 'frame', 'kind', 'detail', 'recording', 'status',
+                'findings by kind'}
+
+
+@pytest.mark.parametrize('css', ['summary', 'sensors', 'verdicts', 'timing', 'events'])
+def test_cells_hold_bare_numbers_with_each_unit_once_in_the_headers(one, css):
+    """Numeric cells are numbers or a dash (no unit inside); a unit appears once per table."""
+    _, page = one
+    rows = table(page, css)
+    assert rows
+    for row in rows:
+        for column, cell in row.items():
+            if column not in TEXT_COLUMNS:
+                assert NUMBER.match(cell), (css, column, cell)
+    found = next(t for t in page.tables if t['class'] == css)
+    headers = ' '.join(cell for row in found['rows'][:found['head']] for cell in row)
+    units = re.findall(r'\(([^)]*)\)', headers)
+    assert len(units) == len(set(units)), units
+
+
+def css_rules(text: str) -> list[tuple[str, str]]:
+    """Return (selector, declarations) of every rule in the page's style sheet."""
+    sheet = text[text.index('<style>') + 7:text.index('</style>')]
+    sheet = re.sub(r'@media[^{]*{', '', sheet)
+    return [(sel.strip(), body) for sel, body in re.findall(r'([^{}]+){([^}]*)}', sheet)]
+
+
+def test_no_rule_breaks_words_in_tables_and_numbers_are_right_aligned_tabular(one):
+    """No word-break anywhere; overflow-wrap only on headings and prose; td right + tabular."""
+    text, _ = one
+    rules = css_rules(text)
+    assert not [sel for sel, body in rules if 'word-break' in body]
+    for sel, body in rules:
+        if 'overflow-wrap' in body:
+            assert not re.search(r'\b(td|th|table|tr)\b', sel), sel
+    cell = ' '.join(body for sel, body in rules if re.search(r'(^|,\s*)td\b', sel))
+    assert 'text-align: right' in cell and 'font-variant-numeric: tabular-nums' in cell
+    wide = ' '.join(body for sel, body in rules if sel == '.wide')
+    assert 'overflow-x: auto' in wide
+    for found in page_tables(text):
+        assert found  # every table sits in a scrolling wrapper
+
+
+def page_tables(text: str) -> list[bool]:
+    """For each <table>, whether the element just before it opens a .wide wrapper."""
+    return [text[:m.start()].endswith('<div class="wide">')
+            for m in re.finditer('<table', text)]
 
 
 # ------------------------------------------------------------------ write_html_atomic
