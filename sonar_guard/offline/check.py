@@ -163,6 +163,7 @@ def print_summary(run: CheckRun, *, file: Any = None, max_events: int = 12) -> N
         console.print(f'  parameters: {_escape(r.config_source)}', style='dim', highlight=False)
         for note in r.notes:
             console.print(f'  note: {_escape(note)}', style='yellow', highlight=False)
+        _print_health(console, r)
         table = Table(show_edge=False, pad_edge=False)
         for col in ('sensor', 'readings', 'ok %', 'no echo %', 'blind %', 'other %',
                     'period ms', 'latency ms', 'range m'):
@@ -201,6 +202,24 @@ def print_summary(run: CheckRun, *, file: Any = None, max_events: int = 12) -> N
         if len(findings) > max_events:
             console.print(f'    ... {len(findings) - max_events} more (see --json / --html)')
     console.print(f'\n{SAFETY_CAUTION}', style='dim', highlight=False)
+
+
+def _print_health(console: Any, result: BagResult) -> None:
+    """Print each sensor's level, worst first with its deciding number and what to do next;
+    the fine ones on one line."""
+    from sonar_guard.offline.health import LEVELS, assess_recording
+
+    health = sorted(assess_recording(result), key=lambda h: -LEVELS.index(h.level))
+    style = {'unusable': 'bold red', 'degraded': 'bold yellow'}
+    for h in health:
+        if h.level == 'fine':
+            continue
+        console.print(f'  {h.level.upper()} {_escape(h.name)}: {_escape(h.deciding_text)}',
+                      style=style[h.level], highlight=False)
+        console.print(f'    next: {_escape(h.advice)}', highlight=False)
+    fine = [h.name for h in health if h.level == 'fine']
+    if fine:
+        console.print(f'  fine: {_escape(", ".join(fine))}', style='green', highlight=False)
 
 
 def _escape(text: str) -> str:

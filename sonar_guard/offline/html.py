@@ -36,15 +36,8 @@ from sonar_guard.offline.html_parts import (
 )
 from sonar_guard.offline.html_style import CSP, CSS
 from sonar_guard.offline.results import BagResult
-from sonar_guard.plots import (
-    EVENT_COLOURS,
-    VERDICT_COLOURS,
-    figure_png_base64,
-    layout_figure,
-    range_figure,
-    speed_figure,
-    timing_figure,
-)
+from sonar_guard.plots import EVENT_COLOURS, VERDICT_COLOURS, figure_png_base64, layout_figure
+from sonar_guard.recording_plots import range_figure, speed_figure, timing_figure
 
 __all__ = ['MAX_EVENT_ROWS', 'render_html', 'write_html_atomic']
 
@@ -193,9 +186,6 @@ def _figures(result: BagResult, layouts: dict[Config, str]) -> str:
                       'headings that no beam covers. Right: the largest safe speed by heading '
                       'at 1 m of free distance, from the configured detection latency, '
                       'reaction time, deceleration and margin.')
-    if result.skipped_checks:
-        layout_caption = ('<b>Parameters unknown: this is the layout assumed for the check, '
-                          "not necessarily the robot's.</b> " + layout_caption)
     parts = [
         '<h3>Range over time</h3>',
         _img(figure_png_base64(range_figure(result)), 'range over time per sensor',
@@ -211,9 +201,14 @@ def _figures(result: BagResult, layouts: dict[Config, str]) -> str:
              'Per sensor, top: time between readings; bottom: worst-case detection latency '
              '(measured firing cycle when known, else the configured one). Dashed and '
              'labelled: the 99th percentile.' + ('' if has_timing else empty), 'small'),
-        '<h3>Sensor layout</h3>',
-        _img(_layout_png(result.config, layouts), 'sensor layout, top view', layout_caption),
     ]
+    if result.skipped_checks:  # the mounts were made up: a drawing of them would mislead
+        parts.append('<h3>Sensor layout</h3><p class="muted">Not drawn: the sensor poses and '
+                     'the footprint are unknown without a parameter file.</p>')
+    else:
+        parts += ['<h3>Sensor layout</h3>',
+                  _img(_layout_png(result.config, layouts), 'sensor layout, top view',
+                       layout_caption)]
     return ''.join(parts)
 
 

@@ -424,3 +424,22 @@ def test_corrupted_mcap_from_the_command_line_shows_no_traceback(recordings, tmp
     errors = [line for line in proc.stderr.splitlines() if line.startswith('sonar-guard:')]
     assert len(errors) == 1, proc.stderr
     assert_outputs_whole_or_absent(tmp_path, json_path, html_path)
+
+
+def test_terminal_summary_gives_each_sensor_a_status_with_what_to_do(recordings, capsys):
+    """Every sensor is named once in a status line: fine ones together, others with their
+    deciding number and a 'next:' line (the levels of offline/health.py)."""
+    from sonar_guard.cli import load_config_file
+    from sonar_guard.offline.health import assess_recording
+    from sonar_guard.offline.replay import check_bag
+
+    params, bags = recordings
+    expected = assess_recording(check_bag(str(bags['mcap']), load_config_file(params)))
+    assert main(['check', str(bags['mcap']), '--params', str(params)]) == 1
+    out = ' '.join(capsys.readouterr().out.split())  # undo rich's line folding
+    for h in expected:
+        if h.level == 'fine':
+            assert h.name in out.split('fine: ', 1)[1].split(' sensor ')[0]
+        else:
+            assert f'{h.level.upper()} {h.name}: {h.deciding_text} next: {h.advice}' in out
+    assert any(h.level != 'fine' for h in expected)

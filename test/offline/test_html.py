@@ -588,3 +588,13 @@ def test_written_report_reads_back_as_the_same_page(tmp_path, one):
     target = Path(tmp_path) / 'r.html'
     write_html_atomic(text, target)
     assert target.read_text(encoding='utf-8') == text
+
+
+def test_without_parameters_no_made_up_layout_or_safe_speed_is_drawn():
+    """Skipped checks (no parameter file): the poses are made up, so the layout figure and its
+    safe-speed-by-heading plot are left out, and the page says why; with parameters, drawn."""
+    without = render_html([make_result(skipped_checks=('stuck', 'overspeed'),
+                                       skipped_notice=NOTICE)])
+    assert 'sensor layout, top view' not in without
+    assert 'Not drawn: the sensor poses and the footprint are unknown' in without
+    assert 'sensor layout, top view' in render_html([make_result()])
