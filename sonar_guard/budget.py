@@ -16,7 +16,7 @@ from sonar_guard.core.geometry import coverage, heading_name
 from sonar_guard.core.monitor import mount_of
 from sonar_guard.core.schedule import Schedule, SensorTiming
 
-__all__ = ['FREE_DISTANCES_M', 'Budget', 'HeadingBudget', 'budget_of', 'budget_headings']
+__all__ = ['Budget', 'FREE_DISTANCES_M', 'HeadingBudget', 'budget_headings', 'budget_of']
 
 FREE_DISTANCES_M: tuple[float, ...] = (0.5, 1.0, 2.0, 3.0)
 

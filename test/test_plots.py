@@ -23,13 +23,11 @@ from sonar_guard.plots import (
     draw_speed_polar,
     figure_png_base64,
     layout_figure,
-    range_figure,
     safe_speed_by_heading,
     save_layout_png,
-    speed_figure,
-    timing_figure,
     uncovered_headings,
 )
+from sonar_guard.recording_plots import range_figure, speed_figure, timing_figure
 
 PNG_SIGNATURE = b'\x89PNG\r\n\x1a\n'  # PNG spec (ISO/IEC 15948) sec. 5.2
 C20 = 331.3 * math.sqrt(1 + 20.0 / 273.15)  # reference.md F1, speed of sound at 20 degC

@@ -77,11 +77,11 @@ else:
     from backports import zstd
 
 __all__ = [
+    'BagSource',
     'ODOMETRY_TYPE',
     'RANGE_TYPE',
     'TWIST_STAMPED_TYPE',
     'TWIST_TYPE',
-    'BagSource',
     'TopicInfo',
 ]
 

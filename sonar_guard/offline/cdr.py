@@ -28,8 +28,8 @@ import numpy.typing as npt
 
 __all__ = [
     'Header',
-    'RangeArrays',
     'OdometryMessage',
+    'RangeArrays',
     'RangeMessage',
     'Stamp',
     'decode_odometry',

@@ -19,13 +19,7 @@ from sonar_guard.core.config import Config
 from sonar_guard.core.monitor import EVENT_KINDS, Event
 from sonar_guard.core.readings import Verdict
 
-__all__ = [
-    'VERDICT_CODES',
-    'BagResult',
-    'BucketSeries',
-    'Histogram',
-    'SensorSummary',
-]
+__all__ = ['BagResult', 'BucketSeries', 'Histogram', 'SensorSummary', 'VERDICT_CODES']
 
 _PENDING_MAX = 1024  # samples held before a bulk flush (bounded memory: ~120 B each)
 

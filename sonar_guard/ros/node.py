@@ -44,7 +44,7 @@ from sonar_guard.ros.diagnostics import build_diagnostics, monitor_level, sensor
 from sonar_guard.ros.markers import build_markers
 from sonar_guard.ros.params import ParameterBridge
 
-__all__ = ['LIMIT_QOS', 'FindingLog', 'SonarGuardNode', 'TransitionLog', 'gate_command', 'main']
+__all__ = ['FindingLog', 'LIMIT_QOS', 'SonarGuardNode', 'TransitionLog', 'gate_command', 'main']
 
 NODE_NAME = 'sonar_guard'
 LIMIT_QOS = QoSProfile(depth=1, history=HistoryPolicy.KEEP_LAST,

@@ -25,8 +25,8 @@ __all__ = [
     'Point',
     'Shape',
     'SwingingDoor',
-    'Wall',
     'Walker',
+    'Wall',
     'World',
     'interpolate_waypoints',
 ]
