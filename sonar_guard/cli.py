@@ -113,15 +113,15 @@ def cmd_budget(args: argparse.Namespace) -> int:
     from rich.table import Table
 
     console = Console()
-    sensors = Table(title=f'Firing schedule: cycle {budget.cycle_s * 1e3:.1f} ms')
-    for col in ('sensor', 'slot', 'echo timeout ms', 'blind range m', 'cycle ms',
+    sensors = Table(title=f'Firing schedule: one cycle of every slot takes '
+                          f'{budget.cycle_s * 1e3:.1f} ms')
+    for col in ('sensor', 'slot', 'echo timeout ms', 'blind range m',
                 'detection latency ms'):
         sensors.add_column(col, justify='left' if col == 'sensor' else 'right',
                            no_wrap=col == 'sensor')
     for t in budget.sensors:
         sensors.add_row(t.name, str(t.slot), _fmt(t.echo_timeout_s, 1e3),
-                        _fmt(t.blind_range_m, digits=3), _fmt(t.cycle_s, 1e3),
-                        _fmt(t.detection_latency_s, 1e3))
+                        _fmt(t.blind_range_m, digits=3), _fmt(t.detection_latency_s, 1e3))
     console.print(sensors)
     lim = config.limits
     speeds = Table(title=(f'Largest safe speed (m/s) by heading and free distance\n'
