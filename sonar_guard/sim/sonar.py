@@ -306,7 +306,9 @@ def _listen(scene: Scene, world: World, pose: tuple[float, float, float],
     time_s = np.where(hit, 2.0 * r / c_true, np.inf)
     timeout_s = 2.0 * sensor.max_range_m / c_assumed
     detected = echoing & (level >= physics.threshold_at(time_s)) & (time_s <= timeout_s)
-    points = np.stack([x + r * dx, y + r * dy], axis=1)
+    # hit points; NaN for rays that hit nothing (inf * a zero direction component is no number)
+    reach = np.where(hit, r, 0.0)
+    points = np.where(hit[:, None], np.stack([x + reach * dx, y + reach * dy], axis=1), np.nan)
     return _Heard(x, y, c_true, c_assumed, time_s, np.where(hit, r, np.inf), level, detected,
                   np.where(hit, idx, -1), points)
 
