@@ -130,15 +130,24 @@ def cmd_budget(args: argparse.Namespace) -> int:
     speeds.add_column('heading', no_wrap=True)
     speeds.add_column('covered by', overflow='fold', min_width=12)
     speeds.add_column('latency ms', justify='right')
+    speeds.add_column('full width from m', justify='right', max_width=7)
     for d in (h[0] for h in budget.headings[0].speeds):
         speeds.add_column(f'{d:g} m', justify='right')
     for h in budget.headings:
         cells = [f'{a:.2f}' + ('*' if v > a else '') for _, v, a in h.speeds]
         speeds.add_row(h.name, '\n'.join(h.sensors) or 'not covered: fallback_speed',
-                       _fmt(h.latency_s, 1e3), *cells)
+                       _fmt(h.latency_s, 1e3),
+                       'nowhere' if h.full_width_from_m is None else f'{h.full_width_from_m:.2f}',
+                       *cells)
     console.print(speeds)
     console.print('* capped by limits.max_speed. Latency: worst detection latency of the '
-                  'covering sensors + reaction time.')
+                  'covering sensors + reaction time. Full width from: the distance beyond the '
+                  "footprint's leading edge from which on the cones cover the whole swept "
+                  'width (nowhere: not within max range).')
+    from sonar_guard.core.watch import unwatched_lines
+    console.print('What no cone watches:')
+    for line in unwatched_lines(config):
+        console.print(f'- {line}', highlight=False)
     console.print(SAFETY_CAUTION, style='dim')
     return EXIT_OK
 

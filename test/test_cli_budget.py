@@ -161,3 +161,48 @@ def test_budget_plot_refuses_a_symlink(tmp_path, capsys):
     link.symlink_to(tmp_path / 'elsewhere.png')
     assert main(['budget', '--plot', str(link)]) == 2
     assert 'symbolic link' in capsys.readouterr().err
+
+
+# The test robot of testkit: box x in [-0.5, 0.5], y in [-0.3, 0.3], one sensor mid front edge
+# facing forward and one mid rear edge facing back, fov 0.4 rad and range 4 m (the defaults).
+# Right triangles (test/core/test_watch.py): the full 0.6 m width is inside a cone from
+# 0.3/tan(0.2) to sqrt(4^2 - 0.3^2) m beyond each edge. Turning: a ray from base_link at phi
+# meets the front cone inside the ring (out to r = hypot(0.5, 0.3)) for
+# |phi| < b - asin(0.5*sin(b)/r), b = 0.2 (sine rule); the rear cone likewise about pi.
+def test_budget_json_gives_where_the_full_width_is_watched_and_the_turning_gaps(tmp_path, capsys):
+    """full_width_from_m / _to_m per heading and turn_unwatched_sectors_rad, closed forms."""
+    out = run_json(capsys, '--params', str(write_params(tmp_path / 'p.yaml', BASE_PARAMS)))
+    for h in out['headings']:
+        assert h['full_width_from_m'] == pytest.approx(0.3 / math.tan(0.2), abs=1e-9)
+        assert h['full_width_to_m'] == pytest.approx(math.sqrt(16 - 0.09), abs=1e-9)
+        assert {'heading', 'heading_rad', 'sensors', 'latency_s', 'speeds'} <= set(h)
+    edge = 0.2 - math.asin(0.5 * math.sin(0.2) / math.hypot(0.5, 0.3))
+    assert out['turn_unwatched_sectors_rad'] == [
+        [pytest.approx(-math.pi + edge, abs=1e-9), pytest.approx(-edge, abs=1e-9)],
+        [pytest.approx(edge, abs=1e-9), pytest.approx(math.pi - edge, abs=1e-9)]]
+
+
+def test_budget_json_full_width_is_null_where_no_cone_spans_the_path(tmp_path, capsys):
+    """Rear sensor turned to face left: reverse is never watched across its width (null)."""
+    params = {**BASE_PARAMS, 'sensors.behind.yaw': math.pi / 2}
+    out = run_json(capsys, '--params', str(write_params(tmp_path / 'p.yaml', params)))
+    by_name = {h['heading']: h for h in out['headings']}
+    assert by_name['reverse']['full_width_from_m'] is None
+    assert by_name['reverse']['full_width_to_m'] is None
+    assert by_name['forward']['full_width_from_m'] == pytest.approx(0.3 / math.tan(0.2))
+
+
+def test_budget_table_has_a_full_width_column_and_says_what_no_cone_watches(tmp_path, capsys):
+    """The column header carries its unit; 'nowhere' for a path no cone spans; the log
+    sentences follow the table."""
+    params = {**BASE_PARAMS, 'sensors.behind.yaw': math.pi / 2}
+    assert main(['budget', '--params', str(write_params(tmp_path / 'p.yaml', params))]) == 0
+    out = capsys.readouterr().out
+    words = ' '.join(out.split())
+    assert 'full' in words and 'width' in words and 'from m' in words
+    rows = {line.split()[1]: line for line in out.splitlines()
+            if line.startswith('│ forward') or line.startswith('│ reverse')}
+    assert f'{0.3 / math.tan(0.2):.2f}' in rows['forward']
+    assert 'nowhere' in rows['reverse']
+    assert 'What no cone watches:' in out
+    assert 'turning in place:' in words
