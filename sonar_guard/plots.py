@@ -21,7 +21,8 @@ from matplotlib.axes import Axes
 from matplotlib.colors import to_rgba
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
-from matplotlib.patches import Patch, Polygon, Wedge
+from matplotlib.patches import Patch, PathPatch, Polygon, Wedge
+from matplotlib.path import Path as DrawnPath
 import numpy as np
 import numpy.typing as npt
 
@@ -30,6 +31,14 @@ from sonar_guard.core.config import Config
 from sonar_guard.core.geometry import coverage, uniform_headings
 from sonar_guard.core.monitor import EVENT_KINDS, mount_of
 from sonar_guard.core.schedule import Schedule
+from sonar_guard.core.watch import (
+    full_width_from_m,
+    in_some_cone,
+    swept_band,
+    turn_annulus_m,
+    unwatched_turn_sectors,
+    watch_headings,
+)
 
 __all__ = [
     'COLOURS',
@@ -39,6 +48,7 @@ __all__ = [
     'UNKNOWN_COLOUR',
     'VERDICT_COLOURS',
     'draw_layout',
+    'draw_near_body',
     'draw_speed_polar',
     'figure_png_base64',
     'figure_png_bytes',
@@ -48,6 +58,7 @@ __all__ = [
     'safe_speed_by_heading',
     'save_layout_png',
     'uncovered_headings',
+    'unwatched_path_mask',
 ]
 
 FloatArray = npt.NDArray[np.float64]
@@ -58,6 +69,8 @@ COLOURS: dict[str, str] = {
     'untrusted': '#c92a2a',   # sensing that must not bound the free distance
     'silent': '#868e96',      # nothing heard
     'uncovered': '#d6336c',   # a travel heading no beam watches
+    'unwatched': '#e8590c',   # path ahead not watched across its full width
+    'turn_unwatched': '#862e9c',  # directions of the turning ring no cone looks into
     'beam': '#1c7ed6',        # a sonar's cone
     'body': '#495057',        # the robot's outline and mounts
     'limit': '#1864ab',       # the allowed speed
@@ -87,6 +100,9 @@ EVENT_COLOURS: dict[str, str] = {
 UNKNOWN_COLOUR = '#adb5bd'
 _NO_DATA = 'no data'
 _HEADINGS = 72  # 5 degree steps, as the engine uses for a holonomic robot
+_PATH_HATCH = '////'
+_TURN_HATCH = 'xxx'
+_MASK_CELLS = 500  # grid cells across the top view for the unwatched path region
 
 
 # ------------------------------------------------------------------ helpers
@@ -172,12 +188,103 @@ def _driven_uncovered(config: Config) -> tuple[bool, bool]:
 # ------------------------------------------------------------------ layout
 
 
+def unwatched_path_mask(config: Config, x_m: npt.ArrayLike,
+                        y_m: npt.ArrayLike) -> npt.NDArray[np.bool_]:
+    """Return, on the grid of base_link x and y (m), what straight travel meets unwatched.
+
+    A point is marked when it lies in the path of a driven heading (forward and reverse, every
+    45 deg for a holonomic base; :func:`sonar_guard.core.watch.watch_headings`), beyond the
+    footprint's leading edge but nearer than where that path starts being watched across its
+    full width (``full_width_from_m``; out to the farthest cone when that is None), and in no
+    cone. Shape (len(y_m), len(x_m)).
+    """
+    xs = np.asarray(x_m, dtype=float)
+    ys = np.asarray(y_m, dtype=float)
+    grid_x, grid_y = np.meshgrid(xs, ys)
+    points = np.column_stack((grid_x.ravel(), grid_y.ravel()))
+    mounts = [mount_of(s) for s in config.sensors]
+    footprint = config.robot.footprint
+    in_path = np.zeros(len(points), dtype=bool)
+    for heading in watch_headings(config):
+        u = np.array([math.cos(heading), math.sin(heading)])
+        n = np.array([-u[1], u[0]])
+        band = swept_band(footprint, heading)
+        upto = full_width_from_m(mounts, footprint, heading)
+        if upto is None:  # watched nowhere: the whole path as far as any cone reaches
+            upto = max((float(np.dot([m.x_m, m.y_m], u)) + m.max_range_m - band.lead_m
+                        for m in mounts), default=math.inf)
+        ahead = points @ u - band.lead_m
+        across = points @ n
+        in_path |= ((ahead >= 0.0) & (ahead <= upto)
+                    & (across >= band.low_m) & (across <= band.high_m))
+    unseen = in_path & ~in_some_cone(mounts, points)
+    mask: npt.NDArray[np.bool_] = unseen.reshape(grid_x.shape)
+    return mask
+
+
+def _cells_path(mask: npt.NDArray[np.bool_], xs: FloatArray, ys: FloatArray,
+                step: float) -> DrawnPath | None:
+    """Return one path of the marked grid cells (runs along x merged), None when none is."""
+    vertices: list[tuple[float, float]] = []
+    for row, y in enumerate(ys):
+        marked = np.flatnonzero(mask[row])
+        if not marked.size:
+            continue
+        breaks = np.flatnonzero(np.diff(marked) > 1)
+        starts = np.concatenate(([marked[0]], marked[breaks + 1]))
+        ends = np.concatenate((marked[breaks], [marked[-1]]))
+        for a, b in zip(starts, ends):
+            x0, x1 = xs[a] - step / 2, xs[b] + step / 2
+            y0, y1 = y - step / 2, y + step / 2
+            vertices += [(x0, y0), (x1, y0), (x1, y1), (x0, y1), (x0, y0)]
+    if not vertices:
+        return None
+    codes = [DrawnPath.MOVETO, *[DrawnPath.LINETO] * 3, DrawnPath.CLOSEPOLY] * (len(vertices) // 5)
+    return DrawnPath(vertices, codes)
+
+
+def _draw_unwatched(ax: Axes, config: Config, pad: float) -> list[Patch]:
+    """Shade the path no cone watches across and the turning ring's unwatched sectors.
+
+    Returns the legend entries of what was drawn.
+    """
+    handles: list[Patch] = []
+    step = 2.0 * pad / _MASK_CELLS
+    grid = -pad + step * (np.arange(_MASK_CELLS) + 0.5)
+    path = _cells_path(unwatched_path_mask(config, grid, grid), grid, grid, step)
+    colour = COLOURS['unwatched']
+    if path is not None:
+        ax.add_patch(PathPatch(path, facecolor=to_rgba(colour, 0.10), edgecolor=colour,
+                               hatch=_PATH_HATCH, linewidth=0.0, zorder=2, gid='unwatched-path'))
+        handles.append(Patch(facecolor=to_rgba(colour, 0.10), edgecolor=colour,
+                             hatch=_PATH_HATCH, linewidth=0.0,
+                             label='path not watched across its full width'))
+    mounts = [mount_of(s) for s in config.sensors]
+    footprint = config.robot.footprint
+    inner, outer = turn_annulus_m(footprint)
+    sectors = unwatched_turn_sectors(mounts, footprint)
+    colour = COLOURS['turn_unwatched']
+    for start, end in sectors:
+        ax.add_patch(Wedge((0.0, 0.0), outer, math.degrees(start), math.degrees(end),
+                           width=outer - inner, facecolor=to_rgba(colour, 0.10),
+                           edgecolor=colour, hatch=_TURN_HATCH, linewidth=0.0, zorder=2,
+                           gid='turn-unwatched'))
+    if sectors:
+        handles.append(Patch(facecolor=to_rgba(colour, 0.10), edgecolor=colour,
+                             hatch=_TURN_HATCH, linewidth=0.0,
+                             label='turning in place: no cone looks this way'))
+    return handles
+
+
 def draw_layout(ax: Axes, config: Config, *, heading_count: int = _HEADINGS) -> None:
     """Draw the top view: footprint, mounts and beam cones, and the uncovered headings (m).
 
     x forward points to the right, y left points up. Uncovered travel headings are thin
     wedges on a ring around the footprint. For a robot that only drives forward and reverse,
-    those two are marked with arrows and the other headings are drawn faint.
+    those two are marked with arrows and the other headings are drawn faint. Hatched: the
+    stretch of each driven heading's path that no cone watches across its full width
+    (:func:`unwatched_path_mask`) and the sectors of the ring turning in place sweeps that
+    no cone looks into (``core.watch.unwatched_turn_sectors``).
     """
     points = np.asarray(config.robot.footprint.points, dtype=float)
     ax.add_patch(Polygon(points, closed=True, facecolor='#e9ecef', edgecolor=COLOURS['body'],
@@ -249,6 +356,7 @@ def draw_layout(ax: Axes, config: Config, *, heading_count: int = _HEADINGS) -> 
             handles.append(Line2D([], [], color=COLOURS['uncovered'], lw=2.2, marker='>',
                                   label='driven heading, NOT covered'))
     pad = 1.08 * max(extent, ring_in + ring_w * 2.2)
+    handles += _draw_unwatched(ax, config, pad)
     ax.set_xlim(-pad, pad)
     ax.set_ylim(-pad, pad)
     ax.set_aspect('equal')
@@ -258,6 +366,77 @@ def draw_layout(ax: Axes, config: Config, *, heading_count: int = _HEADINGS) -> 
     ax.set_axisbelow(True)
     ax.set_title('Top view, base_link (x forward to the right)', fontsize=10)
     ax.legend(handles=handles, loc='lower left', fontsize=7, framealpha=0.9)
+
+
+def draw_near_body(ax: Axes, config: Config) -> None:
+    """Draw a close top view of the body and what no cone watches next to it (m).
+
+    Same frame as :func:`draw_layout`, zoomed to the footprint, the ring turning in place
+    sweeps and each driven heading's path up to where its full width is watched; that
+    distance is marked with a dashed line across the path and its value.
+    """
+    footprint = config.robot.footprint
+    points = np.asarray(footprint.points, dtype=float)
+    mounts = [mount_of(s) for s in config.sensors]
+    inner, outer = turn_annulus_m(footprint)
+    for s in config.sensors:
+        theta = math.degrees(s.yaw_rad)
+        half = math.degrees(s.field_of_view_rad) / 2
+        ax.add_patch(Wedge((s.x_m, s.y_m), s.max_range_m, theta - half, theta + half,
+                           facecolor=to_rgba(COLOURS['beam'], 0.10),
+                           edgecolor=to_rgba(COLOURS['beam'], 0.6), linewidth=0.8, zorder=1,
+                           gid='beam'))
+    ax.add_patch(Polygon(points, closed=True, facecolor='#e9ecef', edgecolor=COLOURS['body'],
+                         linewidth=1.5, zorder=3, gid='footprint'))
+    if config.sensors:
+        ax.plot([m.x_m for m in mounts], [m.y_m for m in mounts], 'o', color=COLOURS['body'],
+                markersize=4, zorder=5, gid='mounts')
+    circle = np.linspace(0.0, 2.0 * math.pi, 241)
+    for radius in (inner, outer):
+        if radius > 0.0:
+            ax.plot(radius * np.cos(circle), radius * np.sin(circle), linestyle=':',
+                    linewidth=0.8, color=COLOURS['body'], zorder=2, gid='turn-ring')
+    corners = [*points, (-outer, -outer), (outer, outer)]
+    labels: list[tuple[FloatArray, FloatArray, float]] = []
+    for heading in watch_headings(config):
+        u = np.array([math.cos(heading), math.sin(heading)])
+        n = np.array([-u[1], u[0]])
+        band = swept_band(footprint, heading)
+        start = full_width_from_m(mounts, footprint, heading)
+        if start is None:
+            continue
+        at = (band.lead_m + start) * u
+        ends = [at + band.low_m * n, at + band.high_m * n]
+        corners += ends
+        ax.plot([ends[0][0], ends[1][0]], [ends[0][1], ends[1][1]], linestyle='--',
+                linewidth=1.2, color=COLOURS['unwatched'], zorder=4, gid='full-width-from')
+        labels.append((at + (band.low_m + band.high_m) / 2.0 * n, u, start))
+    low, high = np.min(corners, axis=0), np.max(corners, axis=0)
+    half = 0.6 * float(np.max(high - low)) + 0.1
+    corners += [middle + u * 0.25 * half for middle, u, _ in labels]  # room for the values
+    low, high = np.min(corners, axis=0), np.max(corners, axis=0)
+    centre = (low + high) / 2.0
+    half = 0.55 * float(np.max(high - low)) + 0.1
+    for middle, u, start in labels:  # the value just beyond the middle of its dashed line
+        spot = middle + u * 0.09 * half
+        ax.text(spot[0], spot[1], f'{start:.2f} m', color=COLOURS['unwatched'], fontsize=8,
+                fontweight='bold', zorder=6, gid='full-width-from-text', ha='center',
+                va='center', bbox={'boxstyle': 'round,pad=0.15', 'facecolor': 'white',
+                                   'alpha': 0.85, 'edgecolor': 'none'})
+    handles = _draw_unwatched(ax, config, max(float(np.abs(centre).max()) + half, 1e-3))
+    ax.set_xlim(centre[0] - half, centre[0] + half)
+    ax.set_ylim(centre[1] - half, centre[1] + half)
+    ax.set_aspect('equal')
+    ax.set_xlabel('x forward (m)')
+    ax.grid(True, color='#dee2e6', linewidth=0.5)
+    ax.set_axisbelow(True)
+    ax.set_title('Near the body: what no cone watches', fontsize=10)
+    handles.append(Line2D([], [], linestyle='--', color=COLOURS['unwatched'],
+                          label='full width watched from here on'))
+    handles.append(Line2D([], [], linestyle=':', color=COLOURS['body'],
+                          label='ring turning in place sweeps'))
+    ax.legend(handles=handles, loc='upper center', bbox_to_anchor=(0.5, -0.13), ncol=2,
+              fontsize=7, framealpha=0.9)
 
 
 def draw_speed_polar(ax: Axes, config: Config, free_distance_m: float) -> None:
@@ -306,10 +485,11 @@ def draw_speed_polar(ax: Axes, config: Config, free_distance_m: float) -> None:
 
 
 def layout_figure(config: Config, free_distance_m: float = 1.0) -> Figure:
-    """Return a figure with the top view and the safe speed by heading side by side."""
-    fig = Figure(figsize=(11.0, 5.4), layout='constrained')
-    draw_layout(fig.add_subplot(1, 2, 1), config)
-    draw_speed_polar(fig.add_subplot(1, 2, 2, projection='polar'), config, free_distance_m)
+    """Return a figure with the top view, the body close up and the safe speed by heading."""
+    fig = Figure(figsize=(16.0, 5.4), layout='constrained')
+    draw_layout(fig.add_subplot(1, 3, 1), config)
+    draw_near_body(fig.add_subplot(1, 3, 2), config)
+    draw_speed_polar(fig.add_subplot(1, 3, 3, projection='polar'), config, free_distance_m)
     kind = 'holonomic' if config.robot.holonomic else 'forward and reverse only'
     fig.suptitle(f'Sensor layout: {len(config.sensors)} sonars, {kind}', fontsize=11)
     return fig

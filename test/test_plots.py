@@ -20,12 +20,14 @@ from sonar_guard.plots import (
     EVENT_COLOURS,
     VERDICT_COLOURS,
     draw_layout,
+    draw_near_body,
     draw_speed_polar,
     figure_png_base64,
     layout_figure,
     safe_speed_by_heading,
     save_layout_png,
     uncovered_headings,
+    unwatched_path_mask,
 )
 from sonar_guard.recording_plots import range_figure, speed_figure, timing_figure
 
@@ -162,11 +164,97 @@ def test_layout_of_a_holonomic_robot_marks_no_driven_headings():
     assert not [g for g in gids(ax) if g.startswith('heading-')]
 
 
+# The test robot (testkit): box x in [-0.5, 0.5], y in [-0.3, 0.3]; sensors mid front edge
+# facing forward and mid rear edge facing back, fov 0.4 rad, range 4 m (config defaults).
+# One cone centred on a path of half width 0.3 m: the full width is inside from
+# d0 = 0.3/tan(0.2) beyond the edge (right triangle, see test/core/test_watch.py); nearer, the
+# cone covers |y| <= d*tan(0.2) only.
+D0 = 0.3 / math.tan(0.2)
+
+
+@pytest.mark.parametrize('x, y, marked', [
+    (0.6, 0.25, True),                 # 0.1 m ahead, 0.25 m aside: |y| > 0.1*tan(0.2)
+    (0.6, 0.0, False),                 # on the beam axis: in the cone
+    (0.5 + D0 - 0.05, 0.29, True),     # just before d0, near the side: still outside the cone
+    (0.5 + D0 + 0.05, 0.29, False),    # just after d0: the full width is watched
+    (0.6, 0.35, False),                # beside the path, not in it
+    (0.4, 0.25, False),                # on the body
+    (-0.6, -0.25, True),               # reversing: the same behind the rear edge
+    (-0.5 - D0 - 0.05, 0.29, False),
+    (0.0, 0.5, False),                 # sideways: not a driven heading of this robot
+])
+def test_unwatched_path_mask_marks_the_path_before_its_full_width_is_watched(x, y, marked):
+    """Points in front of / behind the box, nearer than d0 and outside the cone, are marked."""
+    mask = unwatched_path_mask(make_config(), [x], [y])
+    assert mask.shape == (1, 1)
+    assert bool(mask[0, 0]) is marked
+
+
+def test_unwatched_path_mask_of_a_holonomic_base_covers_the_sideways_path_to_the_cones_reach():
+    """Sideways nothing spans the width: the whole side path is marked, out to where the
+    farthest cone could reach along that heading: apexes on y = 0 with 4 m range, so out to
+    d = 4 m - 0.3 m beyond the side edge at y = 0.3 m, i.e. y = 4 m."""
+    config = make_config({'robot.holonomic': True})
+    assert unwatched_path_mask(config, [0.0], [0.31, 3.95, -0.31, -3.95]).all()
+    assert not unwatched_path_mask(config, [0.0], [4.05, -4.05]).any()
+
+
+def gid_count(ax, gid: str) -> int:
+    return gids(ax).count(gid)
+
+
+def test_near_body_view_marks_where_the_full_width_starts_and_hatches_the_turning_gaps():
+    """The dashed line sits d0 beyond each edge across the path; one hatched wedge per sector
+    of the turning ring no cone looks into, with the closed-form angles of test_watch.py."""
+    ax = Figure().add_subplot()
+    draw_near_body(ax, make_config())
+    lines = [li for li in ax.lines if li.get_gid() == 'full-width-from']
+    xs = sorted(float(li.get_xdata()[0]) for li in lines)
+    np.testing.assert_allclose(xs, [-0.5 - D0, 0.5 + D0], atol=1e-9)
+    for li in lines:
+        np.testing.assert_allclose(sorted(li.get_ydata()), [-0.3, 0.3], atol=1e-9)
+    texts = [t.get_text() for t in ax.texts if t.get_gid() == 'full-width-from-text']
+    assert texts == [f'{D0:.2f} m'] * 2
+    wedges = [p for p in ax.patches if p.get_gid() == 'turn-unwatched']
+    # a sensor at distance a = 0.5 on the axis, ring out to r = hypot(0.5, 0.3): the ray at
+    # phi meets the cone in the ring for |phi| < b - asin(a*sin(b)/r), b = fov/2 (sine rule)
+    edge = math.degrees(0.2 - math.asin(0.5 * math.sin(0.2) / math.hypot(0.5, 0.3)))
+    spans = sorted((w.theta1, w.theta2) for w in wedges)
+    np.testing.assert_allclose(spans, [(-180 + edge, -edge), (edge, 180 - edge)], atol=1e-6)
+    for w in wedges:
+        assert w.r == pytest.approx(math.hypot(0.5, 0.3))
+        assert w.width == pytest.approx(math.hypot(0.5, 0.3) - 0.3)
+        assert w.get_hatch()
+    assert gid_count(ax, 'unwatched-path') == 1
+    assert ax.get_legend() is not None
+
+
+def test_layout_hatches_the_unwatched_path_and_ring_with_distinct_legend_entries():
+    """The top view carries both shadings, each with its own hatch and legend entry."""
+    ax = Figure().add_subplot()
+    draw_layout(ax, make_config())
+    path = next(p for p in ax.patches if p.get_gid() == 'unwatched-path')
+    ring = next(p for p in ax.patches if p.get_gid() == 'turn-unwatched')
+    assert path.get_hatch() and ring.get_hatch() and path.get_hatch() != ring.get_hatch()
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert any('path not watched' in t for t in labels)
+    assert any('turning in place' in t for t in labels)
+
+
+def test_a_layout_whose_cones_see_everything_draws_no_unwatched_path():
+    """Cones of nearly half a turn from base_link see the full width from each edge on."""
+    config = make_config({'sensors.ahead.x': 0.0, 'sensors.behind.x': 0.0,
+                          'sonar.field_of_view': 3.0})
+    ax = Figure().add_subplot()
+    draw_near_body(ax, config)
+    assert 'unwatched-path' not in gids(ax)
+
+
 def test_save_layout_png_writes_a_png_of_the_figure_size(tmp_path):
-    """11 x 5.4 inches at 100 dpi is 1100 x 540 pixels."""
+    """16 x 5.4 inches at 100 dpi is 1600 x 540 pixels."""
     path = tmp_path / 'layout.png'
     save_layout_png(make_config(), path, free_distance_m=2.0)
-    assert png_size(path.read_bytes()) == (1100, 540)
+    assert png_size(path.read_bytes()) == (1600, 540)
 
 
 def test_figure_png_base64_gives_png_text_and_releases_the_figure():
@@ -174,7 +262,7 @@ def test_figure_png_base64_gives_png_text_and_releases_the_figure():
     fig = layout_figure(make_config())
     text = figure_png_base64(fig)
     assert isinstance(text, str)
-    assert png_size(base64.b64decode(text, validate=True)) == (1100, 540)
+    assert png_size(base64.b64decode(text, validate=True)) == (1600, 540)
     assert fig.axes == []
 
 
