@@ -217,7 +217,8 @@ def unwatched_path_mask(config: Config, x_m: npt.ArrayLike,
         across = points @ n
         in_path |= ((ahead >= 0.0) & (ahead <= upto)
                     & (across >= band.low_m) & (across <= band.high_m))
-    unseen = in_path & ~in_some_cone(mounts, points)
+    unseen = in_path.copy()
+    unseen[in_path] = ~in_some_cone(mounts, points[in_path])
     mask: npt.NDArray[np.bool_] = unseen.reshape(grid_x.shape)
     return mask
 

@@ -229,12 +229,12 @@ def in_some_cone(mounts: Sequence[Mount], points_xy: npt.ArrayLike) -> BoolArray
         if mount.field_of_view_rad <= 0.0:
             continue
         offset = points - np.array([mount.x_m, mount.y_m])
-        near = np.hypot(offset[:, 0], offset[:, 1]) <= mount.max_range_m + _TOL_M
-        axis = beam_axis(mount)
-        off_axis = np.abs(np.arctan2(offset[:, 0] * axis[1] - offset[:, 1] * axis[0],
-                                     offset @ axis))
-        inside |= near & ((off_axis <= mount.field_of_view_rad / 2 + 1e-12)
-                          | (np.hypot(offset[:, 0], offset[:, 1]) <= _TOL_M))
+        distance = np.hypot(offset[:, 0], offset[:, 1])
+        # the angle to the axis is at most fov/2 exactly when its cosine is at least cos(fov/2)
+        # (acos falls monotonically on [-1, 1]; this holds for cones wider than half a turn too)
+        cos_half = math.cos(mount.field_of_view_rad / 2.0)
+        inside |= ((distance <= mount.max_range_m + _TOL_M)
+                   & (offset @ beam_axis(mount) >= distance * cos_half - _TOL_M))
     return inside
 
 
