@@ -280,9 +280,11 @@ def unwatched_lines(config: Config) -> list[str]:
     sectors = unwatched_turn_sectors(mounts, footprint)
     ring = f'the ring between {inner:.2f} m and {outer:.2f} m from base_link'
     if sectors:
+        where = ('in any direction' if sectors[0][1] - sectors[0][0] >= _TAU - _TOL_M
+                 else f'at {_degree_spans(sectors)}')
         lines.append(f'turning in place: no cone looks into {ring} (what the footprint sweeps) '
-                     f'at {_degree_spans(sectors)}: an obstacle there is hit without being '
-                     f'seen; the turn limit cannot account for it.')
+                     f'{where}: an obstacle there is hit without being seen; the turn limit '
+                     f'cannot account for it.')
     else:
         lines.append(f'turning in place: some cone looks into {ring} in every direction; '
                      f'points near the body between cones may still go unseen.')
@@ -300,9 +302,9 @@ def _full_width_line(name: str, edge: str, width_m: float, stretches: list[Inter
     what = ('an obstacle there is seen only once it is inside a cone; the limit cannot '
             'account for it.')
     if not stretches:
-        return (f'{name}: no cone combination spans the full {width_m:.2f} m width of the '
-                f'path anywhere within max range: an obstacle in the path may be seen late '
-                f'or not at all; the limit cannot account for it.')
+        return (f'{name}: the cones together never span the full {width_m:.2f} m width of '
+                f'the path within max range: an obstacle in the path may be seen late or not '
+                f'at all; the limit cannot account for it.')
     spans = ' and '.join(f'from {a:.2f} m to {b:.2f} m' for a, b in stretches)
     said = (f'{name}: the full {width_m:.2f} m width of the path is watched {spans} beyond '
             f"the footprint's {edge}")
@@ -319,13 +321,20 @@ def _full_width_line(name: str, edge: str, width_m: float, stretches: list[Inter
 
 
 def _degree_spans(sectors: Iterable[Interval]) -> str:
-    """Return sectors (rad) as 'a to b deg' pieces, a in [-180, 180] and b = a + width."""
+    """Return sectors (rad) as 'a to b deg' pieces, a in [-180, 180] and b = a + width.
+
+    Whole degrees; tenths where whole degrees would show a sector as a single angle; a
+    sector of no width (a single heading) as 'a deg'.
+    """
     parts = []
     for start, end in sectors:
-        if end - start >= _TAU - _TOL_M:
-            return 'every direction'
         a = math.degrees(math.remainder(start, _TAU))
-        parts.append(f'{a:.0f} to {a + math.degrees(end - start):.0f} deg')
+        b = a + math.degrees(end - start)
+        if end - start <= _TOL_M:
+            parts.append(f'{a:.0f} deg')
+            continue
+        digits = 0 if f'{a:.0f}' != f'{b:.0f}' else 1
+        parts.append(f'{a:.{digits}f} to {b:.{digits}f} deg')
     return ', '.join(parts)
 
 

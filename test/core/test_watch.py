@@ -409,3 +409,12 @@ def test_lines_say_when_the_full_width_is_watched_from_the_edge_on():
                           'sonar.field_of_view': 3.0})
     forward = next(li for li in unwatched_lines(config) if li.startswith('forward:'))
     assert 'nothing watches' not in forward and 'from 0.00 m' in forward
+
+
+def test_lines_say_when_no_cone_looks_into_the_turning_ring_at_all():
+    """Cones that end inside the body: the whole ring is unwatched, said in words."""
+    config = make_config({'sensors.ahead.x': 0.0, 'sensors.behind.x': 0.0,
+                          'sensors.ahead.max_range': 0.25, 'sensors.behind.max_range': 0.25,
+                          'sonar.min_range': 0.05})
+    turning = next(li for li in unwatched_lines(config) if li.startswith('turning in place'))
+    assert 'no cone looks into' in turning and 'in any direction' in turning
