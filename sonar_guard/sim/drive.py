@@ -43,12 +43,19 @@ from sonar_guard.core.acoustics import echo_timeout
 from sonar_guard.core.config import Config, SensorConfig
 from sonar_guard.core.schedule import Schedule
 from sonar_guard.offline.bagwrite import odometry_msg, range_msg, twist_msg, write_bag
-from sonar_guard.sim.sonar import Scene, SonarPhysics, _Heard, _listen, _reading, mount_pose
+from sonar_guard.sim.sonar import (
+    Scene,
+    SonarPhysics,
+    _Heard,
+    _listen_all,
+    _reading,
+    mount_pose,
+)
 from sonar_guard.sim.world import Point, World
 
 __all__ = [
-    'CMD_VEL_TOPIC',
     'Arc',
+    'CMD_VEL_TOPIC',
     'Line',
     'Path',
     'Run',
@@ -566,7 +573,7 @@ class Run:
               ) -> list[tuple[SensorConfig, float, float]]:
         """Fire ``sensors`` together at ``t`` s; return (sensor, range m, echo delay s) each."""
         scene = Scene.of(self.world, t)
-        heard = [_listen(scene, self.world, pose, s, self.physics) for s in sensors]
+        heard = _listen_all(scene, self.world, pose, sensors, self.physics)
         strays = (_strays(sensors, heard, pose) if self.physics.crosstalk and len(sensors) > 1
                   else [None] * len(sensors))
         out = []

@@ -232,34 +232,53 @@ class _Heard:
 def _listen(scene: Scene, world: World, pose: tuple[float, float, float],
             sensor: SensorConfig, physics: SonarPhysics) -> _Heard:
     """Cast the beam's rays into ``scene`` and work out each ray's echo."""
-    x, y, heading = mount_pose(pose, sensor)
-    temp_c = world.air_temperature(x, y)
-    c_true = speed_of_sound(temp_c)
-    c_assumed = speed_of_sound(sensor.air_temperature_c)
-    offsets, beam_loss = _beam(physics.rays, sensor.field_of_view_rad, physics.beam_edge_loss_db)
-    angles = heading + offsets
+    return _listen_all(scene, world, pose, (sensor,), physics)[0]
+
+
+def _listen_all(scene: Scene, world: World, pose: tuple[float, float, float],
+                sensors: Sequence[SensorConfig], physics: SonarPhysics) -> list[_Heard]:
+    """Cast the rays of several sensors' beams at once; return each sensor's echoes.
+
+    One pass over every ray of every sensor (numpy's per-call cost dominates at a few dozen
+    rays); each ray's numbers are the same as when its sensor is cast alone.
+    """
+    origins = [mount_pose(pose, sensor) for sensor in sensors]
+    temps = [world.air_temperature(x, y) for x, y, _ in origins]
+    c_trues = [speed_of_sound(temp_c) for temp_c in temps]
+    c_assumeds = [speed_of_sound(sensor.air_temperature_c) for sensor in sensors]
+    beams = [_beam(physics.rays, sensor.field_of_view_rad, physics.beam_edge_loss_db)
+             for sensor in sensors]
+    counts = [offsets.size for offsets, _ in beams]
+
+    def per_ray(values: Sequence[float]) -> NDArray[np.float64]:
+        return np.repeat(np.asarray(values, dtype=np.float64), counts)
+
+    x, y = per_ray([o[0] for o in origins]), per_ray([o[1] for o in origins])
+    angles = np.concatenate([heading + offsets for (_, _, heading), (offsets, _) in
+                             zip(origins, beams)])
+    beam_loss = np.concatenate([loss for _, loss in beams])
     dx, dy = np.cos(angles), np.sin(angles)
-    n_rays = offsets.size
+    n_rays = angles.size
     n_seg = scene.seg_a.shape[0]
 
     # Walls: p + s d = a + u e  ->  s = (a-p) x e / (d x e),  u = (a-p) x d / (d x e)
-    apx = scene.seg_a[:, 0] - x
-    apy = scene.seg_a[:, 1] - y
-    ex, ey = scene.seg_e[:, 0], scene.seg_e[:, 1]
-    denom = dx[:, None] * ey[None, :] - dy[:, None] * ex[None, :]
+    apx = scene.seg_a[None, :, 0] - x[:, None]
+    apy = scene.seg_a[None, :, 1] - y[:, None]
+    ex, ey = scene.seg_e[None, :, 0], scene.seg_e[None, :, 1]
+    denom = dx[:, None] * ey - dy[:, None] * ex
     with np.errstate(divide='ignore', invalid='ignore'):
-        s_w = (apx * ey - apy * ex)[None, :] / denom
-        u_w = (apx[None, :] * dy[:, None] - apy[None, :] * dx[:, None]) / denom
+        s_w = (apx * ey - apy * ex) / denom
+        u_w = (apx * dy[:, None] - apy * dx[:, None]) / denom
     hit_w = (np.abs(denom) > 1e-12) & (s_w > _EPS_S) & (u_w >= 0.0) & (u_w <= 1.0)
     dist_w = np.where(hit_w, s_w, np.inf)
     cos_w = np.abs(denom) / np.where(scene.seg_len > 0, scene.seg_len, 1.0)[None, :]
 
     # Discs: |p + s d - c|^2 = r^2 with |d| = 1; the nearer root, in front of the sensor
-    pcx = x - scene.disc_c[:, 0]
-    pcy = y - scene.disc_c[:, 1]
-    b = dx[:, None] * pcx[None, :] + dy[:, None] * pcy[None, :]
-    cc = pcx * pcx + pcy * pcy - scene.disc_r * scene.disc_r
-    disc = b * b - cc[None, :]
+    pcx = x[:, None] - scene.disc_c[None, :, 0]
+    pcy = y[:, None] - scene.disc_c[None, :, 1]
+    b = dx[:, None] * pcx + dy[:, None] * pcy
+    cc = pcx * pcx + pcy * pcy - (scene.disc_r * scene.disc_r)[None, :]
+    disc = b * b - cc
     root = np.sqrt(np.maximum(disc, 0.0))
     s_d = -b - root
     hit_d = (disc >= 0.0) & (s_d > _EPS_S)
@@ -269,10 +288,13 @@ def _listen(scene: Scene, world: World, pose: tuple[float, float, float],
 
     dist_all = np.concatenate([dist_w, dist_d], axis=1)
     if dist_all.shape[1] == 0:
-        empty = np.full(n_rays, np.inf)
-        return _Heard(x, y, c_true, c_assumed, empty, empty, np.full(n_rays, -np.inf),
-                      np.zeros(n_rays, dtype=bool), np.full(n_rays, -1, dtype=np.intp),
-                      np.full((n_rays, 2), np.nan))
+        out = []
+        for (mx, my, _), c_true, c_assumed, count in zip(origins, c_trues, c_assumeds, counts):
+            empty = np.full(count, np.inf)
+            out.append(_Heard(mx, my, c_true, c_assumed, empty, empty, np.full(count, -np.inf),
+                              np.zeros(count, dtype=bool), np.full(count, -1, dtype=np.intp),
+                              np.full((count, 2), np.nan)))
+        return out
     cos_all = np.concatenate([cos_w, cos_d], axis=1)
     rows = np.arange(n_rays)
     idx = np.argmin(dist_all, axis=1)
@@ -297,20 +319,31 @@ def _listen(scene: Scene, world: World, pose: tuple[float, float, float],
     spreading = np.where(
         is_disc, 40.0 * np.log10(rr) - strength - lambert,
         20.0 * np.log10(2.0 * rr) + np.where(smooth, 0.0, physics.rough_loss_db - lambert))
-    alpha = _alpha(physics.frequency_hz, temp_c, physics.relative_humidity)
+    alpha = per_ray([_alpha(physics.frequency_hz, temp_c, physics.relative_humidity)
+                     for temp_c in temps])
     level = physics.source_level_db - spreading - 2.0 * rr * alpha - absorbs - beam_loss
     limit = np.where(smooth, physics.specular_limit_rad, physics.diffuse_limit_rad)
     echoing = hit & (incidence <= limit)
     level = np.where(echoing, level, -np.inf)
 
-    time_s = np.where(hit, 2.0 * r / c_true, np.inf)
-    timeout_s = 2.0 * sensor.max_range_m / c_assumed
+    c_true_ray = per_ray(c_trues)
+    time_s = np.where(hit, 2.0 * r / c_true_ray, np.inf)
+    timeout_s = per_ray([2.0 * sensor.max_range_m / c_assumed
+                         for sensor, c_assumed in zip(sensors, c_assumeds)])
     detected = echoing & (level >= physics.threshold_at(time_s)) & (time_s <= timeout_s)
     # hit points; NaN for rays that hit nothing (inf * a zero direction component is no number)
     reach = np.where(hit, r, 0.0)
     points = np.where(hit[:, None], np.stack([x + reach * dx, y + reach * dy], axis=1), np.nan)
-    return _Heard(x, y, c_true, c_assumed, time_s, np.where(hit, r, np.inf), level, detected,
-                  np.where(hit, idx, -1), points)
+    dist = np.where(hit, r, np.inf)
+    shape = np.where(hit, idx, -1)
+    out = []
+    first = 0
+    for (mx, my, _), c_true, c_assumed, count in zip(origins, c_trues, c_assumeds, counts):
+        part = slice(first, first + count)
+        out.append(_Heard(mx, my, c_true, c_assumed, time_s[part], dist[part], level[part],
+                          detected[part], shape[part], points[part]))
+        first += count
+    return out
 
 
 def _first(heard: _Heard, after_s: float = 0.0) -> int | None:

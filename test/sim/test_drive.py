@@ -12,7 +12,7 @@ from sonar_guard.core.schedule import Schedule
 from sonar_guard.offline.bags import BagSource
 from sonar_guard.sim.drive import Arc, Line, Path, Run, SpeedProfile, Stop, Turn
 from sonar_guard.sim.sonar import SonarPhysics
-from sonar_guard.sim.world import Wall, World
+from sonar_guard.sim.world import AirZone, Disc, Wall, World
 
 QUIET = SonarPhysics(noise_std_m=0.0)
 T0 = 1_700_000_000.0
@@ -478,6 +478,23 @@ class TestRecords:
         np.testing.assert_allclose(fired['ahead'], fired['behind'], atol=1e-5)
         np.testing.assert_allclose(np.diff(fired['ahead']),
                                    Schedule.from_config(cfg).cycle_s, atol=1e-5)
+
+    def test_sensors_fired_together_read_what_each_reads_alone(self):
+        """Cast in one pass, each sensor keeps its own mount, cone, range and air temperature."""
+        cfg = config(**{'sensors.behind.slot': 0, 'sensors.behind.field_of_view': 0.2,
+                        'sensors.behind.max_range': 2.5, 'sensors.ahead.yaw': 0.3})
+        world = World([Wall((3.0, -5.0), (3.0, 5.0)), Disc((-1.6, 0.2), 0.3)],
+                      air=[AirZone([(0.0, -1.0), (1.0, -1.0), (1.0, 1.0), (0.0, 1.0)], 5.0)],
+                      default_air_c=20.0)
+        run = Run(world, cfg, straight(), SpeedProfile.constant(0.0), QUIET)
+        rng = np.random.default_rng(0)
+        for pose in ((0.0, 0.0, 0.0), (0.4, 0.1, -0.1), (-0.2, -0.3, -0.4)):
+            together = run._fire(cfg.sensors, 0.0, pose, rng)
+            alone = [run._fire([s], 0.0, pose, rng)[0] for s in cfg.sensors]
+            assert together == alone
+            assert all(math.isfinite(value) for _, value, _ in together)  # both hear something
+        # the ahead sensor stands in the 5 degC zone, the behind one in 20 degC air
+        assert world.air_temperature(0.5, 0.0) != world.air_temperature(-0.5, 0.0)
 
     def test_range_messages_carry_the_configured_sensor_data(self):
         """frame_id (or the name), min/max range and field of view come from the config."""
