@@ -5,7 +5,9 @@ Every number here is made up for the demo. The cart is the robot of config/sonar
 order: a room door that swings open into its path, a housekeeping trolley pushed across in
 front of it, a glass partition standing at a steep angle (smooth: the pulse glances off), a
 person who steps right up to the front of the cart, and a cold loading dock where its sensors
-(which assume 21 degC) read long; in the dock the cart is pushed faster than it may go.
+(which assume 21 degC) read long; in the dock the cart is pushed faster than it may go. At the
+corridor's end it swings left on an arc into a side corridor, drives into a lift lobby past a
+linen bin and turns 90 degrees left in place to face the lift door, the bin close beside it.
 """
 from __future__ import annotations
 
@@ -20,18 +22,26 @@ from sonar_guard.core.monitor import EVENT_KINDS, Monitor
 from sonar_guard.offline.bagwrite import write_bag
 from sonar_guard.offline.causes import EVENT_CAUSES
 from sonar_guard.ros.convert import odometry_to_sample, range_to_reading
+from sonar_guard.sim.drive import Arc, Line, Run, SpeedProfile, Turn
 from sonar_guard.sim.drive import Path as DrivePath
-from sonar_guard.sim.drive import Run, SpeedProfile
 from sonar_guard.sim.sonar import SonarPhysics
 from sonar_guard.sim.world import AirZone, Disc, MovingBox, SwingingDoor, Walker, Wall, World
 
 __all__ = ['DEMO_DURATION_S', 'PLANNED', 'Planned', 'corridor_run', 'corridor_world',
            'explain_findings', 'match_planned', 'write_demo_bag']
 
-DEMO_DURATION_S = 75.0
+DEMO_DURATION_S = 97.0
 START_TIME_S = 1_767_225_600.0  # bag time of the start (an invented date)
 PUSHED = (45.0, 52.0)  # m along the corridor: in the dock the cart is pushed past its limit
 HALF_WIDTH = 1.0  # corridor walls at y = +/- 1 m
+# The bend and the lift lobby (invented): the corridor ends at x = 60 m and bends left into a
+# 2 m wide side corridor (x 58..60 m) that opens into a lift lobby (x 56.5..61.5, y 2.5..6.1 m).
+BEND_X = 58.0  # m: the inner corner of the bend is (58, 1); the cart's arc is centred on it
+BEND_RADIUS = 1.0  # m: so the cart swings along the side corridor's centre line x = 59 m
+LOBBY = (56.5, 2.5, 61.5, 6.1)  # m: x min, y min, x max, y max
+TURN_AT = (59.0, 4.5)  # m: where the cart turns 90 degrees left in place, to face the lift
+BIN = (58.15, 3.65, 0.25)  # m: a round linen bin parked in the lobby (centre x, y, radius)
+TURN_RATE = 1.0  # rad/s: the cart's own top yaw rate (turns in place; on the arc, speed * 1/R)
 
 
 @dataclass(frozen=True, slots=True)
@@ -57,17 +67,35 @@ PLANNED: tuple[Planned, ...] = (
             ('no_echo', 'blind'), 52.0, 64.0, 'person'),
     Planned('cold loading dock: sensors read long, the cart is pushed faster than allowed',
             ('overspeed',), 64.0, 75.0, 'cold dock'),
+    Planned('the corridor bends left into a side corridor: the cart swings round on a 1 m arc '
+            'and its beams swing off the end wall', ('no_echo', 'jump'), 78.0, 87.0, 'bend'),
+    Planned('the cart drives into the lift lobby past a linen bin and turns 90 degrees left in '
+            'place to face the lift door, the bin close beside it', ('jump',), 87.0, 97.0,
+            'turn in place'),
 )
 
 def corridor_world() -> World:
-    """Return the corridor with its door, trolley, glass partition, person and cold dock."""
-    walls = [
-        Wall((-2.0, HALF_WIDTH), (60.0, HALF_WIDTH), name='left wall'),
+    """Return the corridor with its door, trolley, glass partition, person, cold dock, the bend
+    into the side corridor and the lift lobby with its linen bin."""
+    x0, y0, x1, y1 = LOBBY
+    walls: list[Wall | Disc] = [
+        Wall((-2.0, HALF_WIDTH), (BEND_X, HALF_WIDTH), name='left wall'),
         Wall((-2.0, -HALF_WIDTH), (60.0, -HALF_WIDTH), name='right wall'),
         Wall((-2.0, -HALF_WIDTH), (-2.0, HALF_WIDTH), name='start wall'),
-        Wall((60.0, -HALF_WIDTH), (60.0, HALF_WIDTH), name='end wall'),
+        # the end wall runs on as the outer wall of the bend and of the side corridor
+        Wall((60.0, -HALF_WIDTH), (60.0, y0), name='end wall'),
+        Wall((BEND_X, HALF_WIDTH), (BEND_X, y0), name='side corridor wall'),
         # a glass partition standing out from the left wall at a steep angle
         Wall((26.0, HALF_WIDTH), (29.0, 0.45), smooth=True, name='glass partition'),
+        # the lift lobby; the lift door is smooth steel in its left wall, facing the turn
+        Wall((BEND_X, y0), (x0, y0), name='lobby wall'),
+        Wall((x0, y0), (x0, TURN_AT[1] - 0.6), name='lobby wall'),
+        Wall((x0, TURN_AT[1] - 0.6), (x0, TURN_AT[1] + 0.6), smooth=True, name='lift door'),
+        Wall((x0, TURN_AT[1] + 0.6), (x0, y1), name='lobby wall'),
+        Wall((x0, y1), (x1, y1), name='lobby wall'),
+        Wall((x1, y1), (x1, y0), name='lobby wall'),
+        Wall((x1, y0), (60.0, y0), name='lobby wall'),
+        Disc((BIN[0], BIN[1]), BIN[2], name='linen bin'),
     ]
     door = SwingingDoor(hinge=(11.0, HALF_WIDTH), length=0.85, closed_angle=0.0,
                         open_angle=-math.pi / 2, t_open_start=8.0, t_open_end=9.2,
@@ -102,8 +130,9 @@ class _DoorThatCloses:
 
 
 class _ObeyingDriver:
-    """The cart's controller: it keeps to the limit of a Monitor fed with its own recording,
-    except while the attendant pushes it (then it goes as fast as the profile says)."""
+    """The cart's controller: it keeps to the limits of a Monitor fed with its own recording
+    (the speed limit, and the allowed turn rate where the engine gives one), except while the
+    attendant pushes it (then it goes as fast as the profile says)."""
 
     def __init__(self, config: Config, start_time_s: float,
                  pushed: tuple[float, float]) -> None:
@@ -111,6 +140,7 @@ class _ObeyingDriver:
         self.start_time_s = start_time_s
         self.pushed = pushed  # stretch of the path (m along x) where the attendant pushes
         self.x = 0.0
+        self._decision: Any = None
         self.names = {'/' + s.topic.lstrip('/'): s.name for s in config.sensors}
         self.odom = '/' + config.odom_topic.lstrip('/')
 
@@ -127,23 +157,45 @@ class _ObeyingDriver:
                 self.x = float(msg.pose.pose.position.x)
             yield record
 
+    def decision(self, t: float) -> Any:
+        """Return the monitor's decision at simulation time t (one tick per time)."""
+        if self._decision is None or self._decision.time_s != self.start_time_s + t:
+            self._decision = self.monitor.tick(self.start_time_s + t)
+        return self._decision
+
     def cap(self, t: float, speed: float) -> float:
         """Return the largest speed the cart keeps to at simulation time t, m/s."""
-        limit = self.monitor.tick(self.start_time_s + t).limit_mps
+        limit = self.decision(t).limit_mps
         if self.pushed[0] <= self.x < self.pushed[1]:
             return math.inf
-        return limit
+        return float(limit)
+
+    def turn_cap(self, t: float, yaw_rate: float) -> float:
+        """Return the largest |yaw rate| the cart keeps to at simulation time t, rad/s.
+
+        The allowed turn rate is read only when the engine gives one (issue 17).
+        """
+        limit = getattr(self.decision(t), 'turn_limit_radps', math.inf)
+        if self.pushed[0] <= self.x < self.pushed[1]:
+            return math.inf
+        return float(limit)
 
 
 def corridor_run(config: Config, *, seed: int = 7, physics: SonarPhysics | None = None,
                  start_time_s: float = START_TIME_S) -> tuple[Run, _ObeyingDriver]:
     """Return the cart's run along the corridor and the driver that keeps it to the limit."""
-    path = DrivePath(waypoints=[(0.0, 0.0), (58.0, 0.0)])
+    # along the corridor, a quarter circle left into the side corridor, up to the lobby, then a
+    # quarter turn left in place to face the lift door (where the run ends, waiting for it)
+    bend = Arc(BEND_RADIUS, math.pi / 2)
+    path = DrivePath.of(Line(BEND_X), bend, Line(TURN_AT[1] - BEND_RADIUS), Turn(math.pi / 2))
+    # speeds (m/s) by distance along the path; 0.6 m/s on the arc is a yaw rate of 0.6 rad/s
     profile = SpeedProfile(points=[(0.0, 0.9), (44.0, 0.9), (44.5, 1.5), (51.0, 1.5),
-                                   (52.0, 0.5), (58.0, 0.5)])
+                                   (52.0, 0.5), (52.5, 0.9), (57.5, 0.9),
+                                   (BEND_X, 0.6), (BEND_X + bend.length_m, 0.6),
+                                   (BEND_X + bend.length_m + 0.5, 0.8)])
     driver = _ObeyingDriver(config, start_time_s, PUSHED)
     run = Run(corridor_world(), config, path, profile, physics or SonarPhysics(), seed=seed,
-              speed_cap=driver.cap)
+              speed_cap=driver.cap, turn_cap=driver.turn_cap, turn_rate_radps=TURN_RATE)
     return run, driver
 
 
