@@ -45,6 +45,7 @@ __all__ = [
     'path_grid',
     'path_pose',
     'path_poses',
+    'polygon_depth',
     'polygon_distance',
     'reading_points',
     'sector_points',
@@ -111,12 +112,9 @@ def inside_polygon(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
     return inside
 
 
-def polygon_distance(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
-    """Return the distance of each (M, 2) point to the filled polygon, m (0 inside).
-
-    Exact: the nearest point of each edge is the projection clamped to the segment (plane
-    geometry), and the smallest of those over all edges is the distance to the outline.
-    """
+def _outline_distance(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
+    """Return the distance of each (M, 2) point to the polygon's outline, m: the projection
+    clamped to each edge segment, the smallest over all edges (plane geometry)."""
     best = np.full(len(points), np.inf)
     for a, b in zip(polygon, np.roll(polygon, -1, axis=0)):
         edge = b - a
@@ -124,8 +122,23 @@ def polygon_distance(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
         t = np.clip((rel @ edge) / float(edge @ edge), 0.0, 1.0)
         gap = rel - t[:, None] * edge
         best = np.minimum(best, np.hypot(gap[:, 0], gap[:, 1]))
+    return best
+
+
+def polygon_distance(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
+    """Return the distance of each (M, 2) point to the filled polygon, m (0 inside): the
+    distance to its outline for points outside."""
+    best = _outline_distance(points, polygon)
     best[inside_polygon(points, polygon)] = 0.0
     return best
+
+
+def polygon_depth(points: np.ndarray, polygon: np.ndarray) -> np.ndarray:
+    """Return how deep each (M, 2) point lies inside the polygon, m: the distance to its
+    outline for points inside, 0 outside."""
+    depth = _outline_distance(points, polygon)
+    depth[~inside_polygon(points, polygon)] = 0.0
+    return depth
 
 
 def compose(pose: Sequence[float], local: np.ndarray) -> np.ndarray:
@@ -355,9 +368,9 @@ def sector_points(x: float, y: float, yaw: float, fov: float, radius: float,
 
 def reading_points(beam: Beam, range_m: float, spacing: float = SPACING_M) -> np.ndarray:
     """Return the constraint points (M, 2, base_link at the reading) of one trusted reading, as
-    /tmp/engine_api.md defines them: an echo r is the arc of radius r across the cone; no echo
-    (+inf or >= max_range) the arc at max_range; blind (-inf or < min_range) the whole sector
-    of radius min_range. A NaN range says nothing: no points."""
+    the issue 17 engine interface defines them: an echo r is the arc of radius r across the
+    cone; no echo (+inf or >= max_range) the arc at max_range; blind (-inf or < min_range) the
+    whole sector of radius min_range. A NaN range says nothing: no points."""
     if math.isnan(range_m):
         return np.zeros((0, 2))
     if range_m < beam.min_range_m:

@@ -24,6 +24,7 @@ from core.sweepref import (
     path_grid,
     path_pose,
     path_poses,
+    polygon_depth,
     polygon_distance,
     reading_points,
     sector_points,
@@ -137,6 +138,16 @@ class TestDistances:
     def test_distance_to_the_box(self, point, expected):
         """The distance is to the nearest point of the filled polygon."""
         got = polygon_distance(np.array([point]), BOX)[0]
+        assert got == pytest.approx(expected, abs=1e-12)
+
+    @pytest.mark.parametrize('point, expected', [
+        ((0.1, 0.1), 0.2),    # nearest to the left edge y = 0.3
+        ((0.45, 0.0), 0.05),  # nearest to the front edge x = 0.5
+        ((1.0, 0.0), 0.0),    # outside
+    ])
+    def test_depth_inside_the_box(self, point, expected):
+        """The depth of an inside point is its distance to the nearest edge."""
+        got = polygon_depth(np.array([point]), BOX)[0]
         assert got == pytest.approx(expected, abs=1e-12)
 
     def test_distance_to_an_l_shape_sees_into_the_notch(self):
